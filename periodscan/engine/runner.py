@@ -1,0 +1,160 @@
+"""Run a planned tree: schedule ready segments on an executor, record every result.
+
+A segment is ready when its parent's checkpoint exists. Ready segments go out longest-chain
+first, at most ``executor.slots`` at a time. Each finished segment is recorded in one ledger
+transaction (checkpoint file written atomically before), so a rerun of a killed sweep skips
+every run already done and restarts from the deepest verified checkpoint.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from tqdm.auto import tqdm
+
+from periodscan.engine import checkpoint
+from periodscan.engine.segment import SegmentJob, SegmentResult
+from periodscan.engine.tree import RunTree
+from periodscan.ledger import Ledger
+
+CHECKPOINT_DIR = "checkpoints"
+MAX_WORKER_RETRIES = 2
+
+
+@dataclass
+class Plan:
+    """The segments still to train and where each one's parent state comes from."""
+
+    needed: set[str]
+    available: dict[str, Path]  # verified checkpoints on disk that needed segments start from
+
+
+def plan_work(tree: RunTree, ledger: Ledger, folder: Path) -> Plan:
+    """Walk up from every unfinished run until a verified checkpoint (or the root)."""
+    finished = ledger.finished_runs()
+    stored = ledger.checkpoints()
+    verified: dict[str, bool] = {}
+
+    def usable(sid: str) -> bool:
+        if sid not in verified:
+            name, digest = stored.get(sid, (None, None))
+            ok = name is not None and (folder / name).is_file()
+            if ok and checkpoint.read_verified(folder / name, digest) is None:
+                warnings.warn(f"checkpoint {name} does not match its recorded hash; "
+                              "retraining that segment", stacklevel=2)
+                ok = False
+            verified[sid] = ok
+        return verified[sid]
+
+    needed: set[str] = set()
+    for run_id, path in tree.paths.items():
+        if run_id in finished:
+            continue
+        for depth in range(len(path) - 1, -1, -1):
+            sid = path[depth]
+            if sid in needed:
+                break
+            if depth < len(path) - 1 and usable(sid):
+                break
+            needed.add(sid)
+    available = {sid: folder / stored[sid][0] for sid, ok in verified.items() if ok}
+    return Plan(needed, available)
+
+
+def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any],
+            executor, threads: int, quiet: bool = False) -> dict[str, int]:
+    """Train every needed segment; return counts of segments done, failed and diverged."""
+    plan = plan_work(tree, ledger, folder)
+    blobs: dict[str, bytes] = {}  # parent checkpoints held for children not yet submitted
+    chain = {sid: tree.critical_path(sid) for sid in plan.needed}
+
+    def parent_ready(sid: str) -> bool:
+        parent = tree.segments[sid].parent
+        return parent is None or parent in blobs or parent in plan.available
+
+    def make_job(sid: str) -> SegmentJob:
+        seg = tree.segments[sid]
+        blob = None
+        if seg.parent is not None:
+            blob = blobs.get(seg.parent)
+            if blob is None:
+                blob = plan.available[seg.parent].read_bytes()
+        return SegmentJob(sid, training, seg.seed, seg.begin, seg.end, seg.deficit_on, blob,
+                          keep_checkpoint=bool(seg.children), evaluate_at_end=bool(seg.finishes),
+                          threads=threads)
+
+    waiting = set(plan.needed)
+    running: dict[Any, str] = {}
+    retries: dict[str, int] = {}
+    counts = {"done": 0, "failed": 0, "diverged": 0}
+    total = sum(tree.segments[s].epochs for s in plan.needed)
+    bar = tqdm(total=total, unit="epoch", desc="sweep", disable=quiet or total == 0,
+               dynamic_ncols=True, smoothing=0.1)
+    try:
+        while waiting or running:
+            ready = sorted((s for s in waiting if parent_ready(s)), key=lambda s: -chain[s])
+            for sid in ready[: max(executor.slots - len(running), 0)]:
+                waiting.discard(sid)
+                running[executor.submit(make_job(sid))] = sid
+            if not running:
+                break  # what is left hangs below a failed segment
+            for future in executor.wait_first(running):
+                sid = running.pop(future)
+                try:
+                    result: SegmentResult = future.result()
+                except Exception as err:  # noqa: BLE001 - a worker process died
+                    retries[sid] = retries.get(sid, 0) + 1
+                    if retries[sid] <= MAX_WORKER_RETRIES:
+                        waiting.add(sid)
+                        continue
+                    result = SegmentResult(sid, error=f"worker lost {retries[sid]} times: {err!r}")
+                _record(tree, ledger, folder, result, threads, blobs)
+                status = ("failed" if result.error else
+                          "diverged" if result.diverged_at is not None else "done")
+                counts[status] += 1
+                if status != "done":
+                    waiting -= _subtree(tree, sid)
+                bar.update(tree.segments[sid].epochs)
+                _release(tree, blobs, waiting | set(running.values()))
+    finally:
+        bar.close()
+    return counts
+
+
+def _record(tree: RunTree, ledger: Ledger, folder: Path, result: SegmentResult, threads: int,
+            blobs: dict[str, bytes]) -> None:
+    """Write the checkpoint (atomically), then the ledger rows, then mark runs below failures."""
+    sid = result.segment_id
+    seg = tree.segments[sid]
+    name = digest = None
+    if result.checkpoint is not None:
+        name = f"{CHECKPOINT_DIR}/{sid}.pt"
+        digest = checkpoint.sha256(result.checkpoint)
+        checkpoint.write_atomic(folder / name, result.checkpoint)
+        blobs[sid] = result.checkpoint
+    ledger.record_segment(result, name, digest, seg.finishes, threads)
+    below = [rid for rid, path in tree.paths.items() if sid in path]
+    if result.error:
+        ledger.mark_runs(below, "failed", error=result.error.strip().splitlines()[-1])
+    elif result.diverged_at is not None:
+        ledger.mark_runs(below, "diverged", diverged_at=result.diverged_at, acc=result.test_acc,
+                         loss=result.test_loss, n_test=result.n_test, correct=result.correct)
+
+
+def _subtree(tree: RunTree, sid: str) -> set[str]:
+    out, stack = set(), [sid]
+    while stack:
+        current = stack.pop()
+        out.add(current)
+        stack.extend(tree.segments[current].children)
+    return out
+
+
+def _release(tree: RunTree, blobs: dict[str, bytes], pending: set[str]) -> None:
+    """Drop in-memory checkpoints whose children have all been submitted."""
+    for sid in list(blobs):
+        if not any(c in pending for c in tree.segments[sid].children):
+            del blobs[sid]

@@ -1,0 +1,161 @@
+"""Train one segment of the run tree: a pure function from (config, parent checkpoint) to result.
+
+This is the unit of work every executor ships to a worker (a local process or a cluster node).
+It takes and returns plain picklable values, checkpoints as bytes, so no shared file system is
+needed, and it sets torch's thread count itself, because the thread count changes the numbers.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+import traceback
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import torch
+from hydra.utils import instantiate
+
+from periodscan.data.base import TensorData
+from periodscan.deficits.base import Deficit
+from periodscan.engine import checkpoint
+from periodscan.engine.schedule import build_optimizer
+from periodscan.engine.training import EpochRecord, evaluate, prepare_deficit, train_epoch
+from periodscan.seeding import ONCE, derive_seed
+
+
+@dataclass
+class SegmentJob:
+    """Everything a worker needs to train epochs ``[begin, end)`` of one seed."""
+
+    segment_id: str
+    config: dict[str, Any]  # plain containers: data, model, deficit, schedule
+    seed: int
+    begin: int
+    end: int
+    deficit_on: bool
+    parent_checkpoint: bytes | None
+    keep_checkpoint: bool
+    evaluate_at_end: bool
+    threads: int = 1
+
+
+@dataclass
+class SegmentResult:
+    """What comes back: per-epoch metrics, the end checkpoint and the final evaluation."""
+
+    segment_id: str
+    epochs: list[EpochRecord] = field(default_factory=list)
+    checkpoint: bytes | None = None
+    test_acc: float | None = None
+    test_loss: float | None = None
+    correct: bytes | None = None  # np.packbits of the per-example correctness vector
+    n_test: int = 0
+    diverged_at: int | None = None
+    seconds: float = 0.0
+    error: str | None = None
+
+
+_DATA_CACHE: dict[str, TensorData] = {}
+
+
+def load_data(data_config: dict[str, Any]) -> TensorData:
+    """Build the dataset once per process; workers reuse it across segments."""
+    key = json.dumps(data_config, sort_keys=True, default=str)
+    if key not in _DATA_CACHE:
+        _DATA_CACHE.clear()
+        _DATA_CACHE[key] = instantiate(data_config)
+    return _DATA_CACHE[key]
+
+
+def build_model(config: dict[str, Any], data: TensorData, seed: int) -> torch.nn.Module:
+    """Instantiate the model with initial weights that depend only on the seed."""
+    torch.manual_seed(derive_seed(seed, ONCE, "init"))
+    return instantiate(config["model"], input_shape=data.input_shape, num_classes=data.num_classes)
+
+
+def run_segment(job: SegmentJob) -> SegmentResult:
+    """Train the segment; errors come back as data, so one bad run never stops a sweep."""
+    started = time.perf_counter()
+    try:
+        result = _train(job)
+    except Exception:  # noqa: BLE001 - recorded in the ledger, shown by status/report
+        result = SegmentResult(job.segment_id, error=traceback.format_exc(limit=8))
+    result.seconds = time.perf_counter() - started
+    return result
+
+
+def _train(job: SegmentJob) -> SegmentResult:
+    torch.set_num_threads(job.threads)
+    config = job.config
+    data = load_data(config["data"])
+    model = build_model(config, data, job.seed)
+    optimizer = build_optimizer(model.parameters(), config["schedule"])
+    if job.parent_checkpoint is not None:
+        state = checkpoint.from_bytes(job.parent_checkpoint)
+        if state["epoch"] != job.begin:
+            raise RuntimeError(f"parent checkpoint is at epoch {state['epoch']}, need {job.begin}")
+        model.load_state_dict(state["model"])
+        optimizer.load_state_dict(state["optimizer"])
+    deficit = _deficit(config, data, job.seed) if job.deficit_on else None
+
+    result = SegmentResult(job.segment_id)
+    result.epochs, final, result.diverged_at = train_epochs(
+        model, optimizer, data, config["schedule"], job.seed, range(job.begin, job.end),
+        lambda epoch: deficit,
+    )
+    if job.evaluate_at_end or result.diverged_at is not None:
+        result.test_acc, result.test_loss = final.acc, final.loss
+        result.correct = np.packbits(final.correct.numpy()).tobytes()
+        result.n_test = len(final.correct)
+    if job.keep_checkpoint and result.diverged_at is None:
+        result.checkpoint = checkpoint.to_bytes(model, optimizer, job.end)
+    return result
+
+
+def _deficit(config: dict[str, Any], data: TensorData, seed: int) -> Deficit:
+    deficit = instantiate(config["deficit"])
+    prepare_deficit(deficit, data, seed)
+    return deficit
+
+
+def train_epochs(model, optimizer, data: TensorData, schedule: dict[str, Any], seed: int,
+                 epochs: range, deficit_at: Callable[[int], Deficit | None]):
+    """Train ``epochs`` in order, evaluating after each; stop at the first non-finite loss.
+
+    Returns (epoch records, evaluation after the last trained epoch, diverged epoch or None).
+    """
+    records: list[EpochRecord] = []
+    held_out = None
+    for epoch in epochs:
+        tick = time.perf_counter()
+        deficit = deficit_at(epoch)
+        lr, train_loss, train_acc = train_epoch(
+            model, optimizer, data, schedule, seed, epoch, deficit
+        )
+        held_out = evaluate(model, data.x_test, data.y_test)
+        records.append(EpochRecord(epoch, lr, train_loss, train_acc, held_out.loss, held_out.acc,
+                                   deficit is not None, time.perf_counter() - tick))
+        if not np.isfinite(train_loss):
+            return records, held_out, epoch
+    return records, held_out, None
+
+
+def train_from_scratch(config: dict[str, Any], run, threads: int = 1):
+    """Train one run start to end in a single pass, no checkpoints: the reference for branching.
+
+    Returns (model, optimizer, epoch records). Used by tests and benchmarks to show that a run
+    assembled from shared segments is bit-identical to the same run trained on its own.
+    """
+    torch.set_num_threads(threads)
+    data = load_data(config["data"])
+    model = build_model(config, data, run.seed)
+    optimizer = build_optimizer(model.parameters(), config["schedule"])
+    deficit = _deficit(config, data, run.seed) if run.length > 0 else None
+    records, _, _ = train_epochs(
+        model, optimizer, data, config["schedule"], run.seed, range(run.end),
+        lambda epoch: deficit if run.deficit_on(epoch) else None,
+    )
+    return model, optimizer, records

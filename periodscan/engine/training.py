@@ -1,0 +1,133 @@
+"""The training loop: one straight-line function per epoch, plus evaluation.
+
+Every random draw of epoch ``e`` comes from generators keyed by (seed, e, purpose), and torch's
+global RNG (used by dropout) is reseeded from (seed, e, "torch") at the start of the epoch.
+Nothing carries over between epochs except model and optimizer state, which is exactly what a
+checkpoint holds; that is what makes a branched run bit-identical to a from-scratch one.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import torch
+import torch.nn.functional as F
+
+from periodscan.augment import augment_batch
+from periodscan.data.base import TensorData
+from periodscan.deficits.base import Deficit
+from periodscan.engine.schedule import lr_at
+from periodscan.seeding import ONCE, derive_seed, generator
+
+EVAL_BATCH = 1024
+
+
+@dataclass
+class EpochRecord:
+    """Metrics of one finished epoch; accuracies are fractions in [0, 1]."""
+
+    epoch: int
+    lr: float
+    train_loss: float
+    train_acc: float
+    test_loss: float
+    test_acc: float
+    deficit_on: bool
+    seconds: float
+
+
+@dataclass
+class Evaluation:
+    """Held-out evaluation: mean loss, accuracy and the per-example correctness vector."""
+
+    loss: float
+    acc: float
+    correct: torch.Tensor  # bool, one entry per held-out example
+
+
+def prepare_deficit(deficit: Deficit, data: TensorData, seed: int) -> None:
+    """Let the deficit make its per-run fixed choices (same in every process for a seed)."""
+    deficit.prepare(data, generator(seed, ONCE, "deficit"))
+
+
+def train_epoch(
+    model: torch.nn.Module,
+    optimizer: torch.optim.Optimizer,
+    data: TensorData,
+    schedule: Mapping[str, Any],
+    seed: int,
+    epoch: int,
+    deficit: Deficit | None,
+) -> tuple[float, float, float]:
+    """Train one epoch in place; return (lr, mean train loss, train accuracy).
+
+    ``deficit`` is None for a clean epoch. The returned loss is NaN when training diverged.
+    """
+    torch.manual_seed(derive_seed(seed, epoch, "torch"))  # dropout and any user module draws
+    lr = lr_at(epoch, schedule)
+    for group in optimizer.param_groups:
+        group["lr"] = lr
+
+    n = len(data.y_train)
+    order = torch.randperm(n, generator=generator(seed, epoch, "order"))
+    deficit_gen = generator(seed, epoch, "deficit")
+    if deficit is not None:
+        order = deficit.select(order, data, deficit_gen)
+    augment = schedule.get("augment") or {}
+    use_augment = bool(augment.get("max_shift", 0) or augment.get("hflip", False)) and not (
+        deficit is not None and deficit.disables_augmentation
+    )
+    augment_gen = generator(seed, epoch, "augment")
+
+    batch_size = int(schedule["batch_size"])
+    model.train()
+    total_loss = torch.zeros((), dtype=torch.float64)
+    total_correct = 0
+    seen = 0
+    for begin in range(0, len(order), batch_size):
+        idx = order[begin : begin + batch_size]
+        if len(idx) == 1 and begin > 0:
+            break  # a trailing batch of one example: BatchNorm cannot normalise it
+        x = data.x_train[idx]  # (B, C, *spatial)
+        y = data.y_train[idx]  # (B,)
+        if use_augment:
+            x = augment_batch(
+                x, augment_gen, int(augment.get("max_shift", 0)), bool(augment.get("hflip", False))
+            )
+        if deficit is not None:
+            x, y = deficit.apply(x, y, idx, deficit_gen)
+        logits = model(x)
+        loss = F.cross_entropy(logits, y)
+        if not torch.isfinite(loss):
+            return lr, math.nan, math.nan
+        optimizer.zero_grad(set_to_none=True)
+        loss.backward()
+        optimizer.step()
+        total_loss += loss.detach().double() * len(y)
+        total_correct += int((logits.detach().argmax(1) == y).sum())
+        seen += len(y)
+    if seen == 0:
+        return lr, math.nan, math.nan
+    return lr, float(total_loss) / seen, total_correct / seen
+
+
+@torch.no_grad()
+def evaluate(model: torch.nn.Module, x: torch.Tensor, y: torch.Tensor) -> Evaluation:
+    """Loss, accuracy and per-example correctness on clean held-out data, in eval mode.
+
+    Non-finite logits (a diverged model) count as wrong answers, never as a crash.
+    """
+    model.eval()
+    losses, correct = [], []
+    for begin in range(0, len(y), EVAL_BATCH):
+        logits = model(x[begin : begin + EVAL_BATCH])
+        target = y[begin : begin + EVAL_BATCH]
+        finite = torch.isfinite(logits).all(dim=1)
+        losses.append(F.cross_entropy(logits, target, reduction="none").double())
+        correct.append((logits.argmax(1) == target) & finite)
+    loss = torch.cat(losses).mean().item()
+    hits = torch.cat(correct)
+    return Evaluation(loss=loss, acc=hits.double().mean().item(), correct=hits)

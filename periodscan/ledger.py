@@ -1,0 +1,163 @@
+"""The sweep's SQLite ledger: every segment and run, their status, timings and metrics.
+
+Only the process that owns the sweep writes it, each result in one transaction, so a sweep
+killed at any moment leaves a ledger that is consistent up to the last finished segment.
+Readers (``status``, ``report``, notebooks) may open it while a sweep runs.
+"""
+
+from __future__ import annotations
+
+import json
+import socket
+import sqlite3
+import time
+from collections.abc import Iterable
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from periodscan.engine.segment import SegmentResult
+from periodscan.engine.tree import RunSpec, Segment
+
+FILE_NAME = "ledger.sqlite"
+
+SCHEMA = """
+CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS segments (
+    segment_id TEXT PRIMARY KEY, seed INTEGER, parent_id TEXT, begin_epoch INTEGER,
+    end_epoch INTEGER, deficit_on INTEGER, status TEXT, seconds REAL, checkpoint_file TEXT,
+    checkpoint_sha256 TEXT, diverged_at INTEGER, error TEXT, threads INTEGER, host TEXT,
+    finished_at REAL
+);
+CREATE TABLE IF NOT EXISTS epochs (
+    segment_id TEXT, epoch INTEGER, lr REAL, train_loss REAL, train_acc REAL, test_loss REAL,
+    test_acc REAL, deficit_on INTEGER, seconds REAL, PRIMARY KEY (segment_id, epoch)
+);
+CREATE TABLE IF NOT EXISTS runs (
+    run_id TEXT PRIMARY KEY, seed INTEGER, start_epoch INTEGER, length INTEGER,
+    end_epoch INTEGER, is_baseline INTEGER, config_hash TEXT, status TEXT, path TEXT,
+    test_acc REAL, test_loss REAL, n_test INTEGER, correct BLOB, diverged_at INTEGER,
+    error TEXT, finished_at REAL
+);
+"""
+
+
+class Ledger:
+    """Thin wrapper over one SQLite file; one method per thing the engine records or reads."""
+
+    def __init__(self, folder: str | Path):
+        self.path = Path(folder) / FILE_NAME
+        self.conn = sqlite3.connect(self.path, timeout=30)
+        self.conn.executescript(SCHEMA)
+        self.conn.commit()
+
+    def close(self) -> None:
+        self.conn.close()
+
+    # --- meta -------------------------------------------------------------------------
+    def get_meta(self, key: str) -> str | None:
+        row = self.conn.execute("SELECT value FROM meta WHERE key = ?", (key,)).fetchone()
+        return row[0] if row else None
+
+    def set_meta(self, **values: Any) -> None:
+        with self.conn:
+            for key, value in values.items():
+                text = value if isinstance(value, str) else json.dumps(value)
+                self.conn.execute("INSERT OR REPLACE INTO meta VALUES (?, ?)", (key, text))
+
+    # --- planning -----------------------------------------------------------------------
+    def register(self, segments: Iterable[Segment], runs: Iterable[RunSpec], paths, config_hash):
+        """Insert planned segments and runs that are not known yet (status 'pending')."""
+        with self.conn:
+            self.conn.executemany(
+                "INSERT OR IGNORE INTO segments (segment_id, seed, parent_id, begin_epoch, "
+                "end_epoch, deficit_on, status) VALUES (?, ?, ?, ?, ?, ?, 'pending')",
+                [(s.segment_id, s.seed, s.parent, s.begin, s.end, int(s.deficit_on))
+                 for s in segments],
+            )
+            self.conn.executemany(
+                "INSERT OR IGNORE INTO runs (run_id, seed, start_epoch, length, end_epoch, "
+                "is_baseline, config_hash, status, path) VALUES (?, ?, ?, ?, ?, ?, ?, 'pending', ?)",
+                [(r.run_id, r.seed, r.start, r.length, r.end, int(r.is_baseline), config_hash,
+                  ",".join(paths[r.run_id])) for r in runs],
+            )
+
+    def finished_runs(self) -> set[str]:
+        """Runs with a final result (finished or diverged); failed runs are retried."""
+        rows = self.conn.execute("SELECT run_id FROM runs WHERE status IN ('done', 'diverged')")
+        return {r[0] for r in rows}
+
+    def checkpoints(self) -> dict[str, tuple[str, str]]:
+        """segment_id -> (file name, sha256) for every segment that stored a checkpoint."""
+        rows = self.conn.execute(
+            "SELECT segment_id, checkpoint_file, checkpoint_sha256 FROM segments "
+            "WHERE checkpoint_file IS NOT NULL"
+        )
+        return {sid: (name, digest) for sid, name, digest in rows}
+
+    # --- results ------------------------------------------------------------------------
+    def record_segment(self, result: SegmentResult, checkpoint_file: str | None, digest: str | None,
+                       finishes: Iterable[RunSpec], threads: int) -> None:
+        """Store one segment's epochs, checkpoint reference and the runs it finishes, atomically."""
+        now = time.time()
+        status = "failed" if result.error else ("diverged" if result.diverged_at is not None else "done")
+        with self.conn:
+            self.conn.execute(
+                "UPDATE segments SET status=?, seconds=?, checkpoint_file=?, checkpoint_sha256=?, "
+                "diverged_at=?, error=?, threads=?, host=?, finished_at=? WHERE segment_id=?",
+                (status, result.seconds, checkpoint_file, digest, result.diverged_at, result.error,
+                 threads, socket.gethostname(), now, result.segment_id),
+            )
+            self.conn.executemany(
+                "INSERT OR REPLACE INTO epochs VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                [(result.segment_id, e.epoch, e.lr, e.train_loss, e.train_acc, e.test_loss,
+                  e.test_acc, int(e.deficit_on), e.seconds) for e in result.epochs],
+            )
+            if result.error is None and result.diverged_at is None:
+                self.conn.executemany(
+                    "UPDATE runs SET status='done', test_acc=?, test_loss=?, n_test=?, correct=?, "
+                    "error=NULL, finished_at=? WHERE run_id=?",
+                    [(result.test_acc, result.test_loss, result.n_test, result.correct, now, r.run_id)
+                     for r in finishes],
+                )
+
+    def mark_runs(self, run_ids: Iterable[str], status: str, *, error: str | None = None,
+                  diverged_at: int | None = None, acc: float | None = None,
+                  loss: float | None = None, n_test: int = 0, correct: bytes | None = None) -> None:
+        """Give runs below a failed or diverged segment their outcome."""
+        now = time.time()
+        with self.conn:
+            self.conn.executemany(
+                "UPDATE runs SET status=?, error=?, diverged_at=?, test_acc=?, test_loss=?, "
+                "n_test=?, correct=?, finished_at=? WHERE run_id=?",
+                [(status, error, diverged_at, acc, loss, n_test, correct, now, rid)
+                 for rid in run_ids],
+            )
+
+    # --- reading ------------------------------------------------------------------------
+    def runs_frame(self) -> pd.DataFrame:
+        """One row per run (without the correctness blob)."""
+        return pd.read_sql_query(
+            "SELECT run_id, seed, start_epoch, length, end_epoch, is_baseline, status, test_acc, "
+            "test_loss, n_test, diverged_at, error, finished_at FROM runs", self.conn)
+
+    def segments_frame(self) -> pd.DataFrame:
+        return pd.read_sql_query("SELECT * FROM segments", self.conn)
+
+    def epochs_frame(self) -> pd.DataFrame:
+        """Per-epoch metrics of every run, following each run's path through the tree."""
+        epochs = pd.read_sql_query("SELECT * FROM epochs", self.conn)
+        paths = self.conn.execute("SELECT run_id, seed, start_epoch, length, path FROM runs")
+        frames = []
+        for run_id, seed, start, length, path in paths:
+            part = epochs[epochs.segment_id.isin(path.split(","))].assign(
+                run_id=run_id, seed=seed, start_epoch=start, length=length)
+            frames.append(part)
+        if not frames:
+            return epochs.assign(run_id=[], seed=[], start_epoch=[], length=[])
+        return pd.concat(frames, ignore_index=True).sort_values(["run_id", "epoch"])
+
+    def correctness(self, run_id: str) -> tuple[bytes, int] | None:
+        row = self.conn.execute("SELECT correct, n_test FROM runs WHERE run_id=?", (run_id,)).fetchone()
+        return (row[0], row[1]) if row and row[0] is not None else None

@@ -1,0 +1,204 @@
+"""The ``sweep`` job as a library call: plan, check, train what is missing, write the table.
+
+``run_sweep`` is what the CLI verb calls and what a notebook calls; it returns DataFrames.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+from omegaconf import DictConfig, OmegaConf
+
+from periodscan.analysis.sensitivity import sensitivity_table
+from periodscan.components import check_components
+from periodscan.config import (
+    TRAINING_KEYS,
+    compose_config,
+    plan_runs,
+    results_folder,
+    seed_list,
+    to_plain,
+    training_identity,
+)
+from periodscan.engine.checkpoint import write_atomic
+from periodscan.engine.executors import make_executor
+from periodscan.engine.lock import FolderLock
+from periodscan.engine.runner import execute
+from periodscan.engine.segment import SegmentJob, run_segment
+from periodscan.engine.tree import RunTree, build_tree
+from periodscan.errors import PeriodscanError, SweepError
+from periodscan.ledger import Ledger
+from periodscan.plots import sensitivity_curve
+from periodscan.terminal import format_tree
+
+TABLE_CSV = "sensitivity.csv"
+CURVE_PNG = "sensitivity.png"
+
+
+@dataclass
+class Prepared:
+    """A validated sweep: plain config, its run tree and where it writes."""
+
+    plain: dict[str, Any]
+    tree: RunTree
+    folder: Path
+    identity: str
+    seeds: list[int]
+
+
+@dataclass
+class SweepOutcome:
+    """What a finished (or partly failed) sweep hands back."""
+
+    folder: Path
+    table: pd.DataFrame
+    runs: pd.DataFrame
+    counts: dict[str, int]
+    epochs_shared: int
+    epochs_unshared: int
+    seconds: float
+
+
+def prepare(config: DictConfig | dict | Sequence[str]) -> Prepared:
+    """Accept a composed config, a plain dict or Hydra override strings; validate everything."""
+    if isinstance(config, DictConfig):
+        plain = to_plain(config)
+    elif isinstance(config, dict):
+        plain = to_plain(OmegaConf.create(config))
+    else:
+        plain = to_plain(compose_config(list(config)))
+    runs = plan_runs(plain)
+    check_components(plain)
+    identity = training_identity(plain)
+    return Prepared(plain, build_tree(runs, identity), results_folder(plain), identity,
+                    seed_list(plain))
+
+
+def _open_ledger(prep: Prepared) -> Ledger:
+    """Open (or create) the ledger, refusing a folder written under a different training config."""
+    existing = (prep.folder / "ledger.sqlite").exists()
+    if not existing and prep.folder.exists() and any(
+            p.name not in ("sweep.lock",) for p in prep.folder.iterdir()):
+        raise SweepError(f"results folder {prep.folder} exists and is not a periodscan sweep; "
+                         "choose another name=")
+    ledger = Ledger(prep.folder)
+    known = ledger.get_meta("identity")
+    if known is not None and known != prep.identity:
+        before = json.loads(ledger.get_meta("training") or "{}")
+        changed = [k for k in TRAINING_KEYS if before.get(k) != prep.plain[k]]
+        ledger.close()
+        raise SweepError(
+            f"results folder {prep.folder} holds a sweep trained under another config "
+            f"(differs in: {', '.join(changed) or 'engine or thread count'}); "
+            "use a new name=... or delete that folder"
+        )
+    if known is None:
+        ledger.set_meta(identity=prep.identity,
+                        training={k: prep.plain[k] for k in TRAINING_KEYS},
+                        created=time.time())
+    return ledger
+
+
+def run_sweep(config: DictConfig | dict | Sequence[str] = (), quiet: bool = False) -> SweepOutcome:
+    """Run (or resume) a sweep and write its ledger, table and curve into its folder."""
+    prep = prepare(config)
+    started = time.perf_counter()
+    threads = int(prep.plain["executor"].get("threads_per_worker", 1))
+    training = {k: prep.plain[k] for k in TRAINING_KEYS}
+    try:
+        prep.folder.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise SweepError(f"cannot create results folder {prep.folder}: {err.strerror}") from None
+    with FolderLock(prep.folder):
+        ledger = _open_ledger(prep)
+        try:
+            ledger.register(prep.tree.segments.values(), prep.tree.runs.values(),
+                            prep.tree.paths, prep.identity)
+            write_atomic(prep.folder / "config.yaml",
+                         OmegaConf.to_yaml(OmegaConf.create(prep.plain)).encode())
+            executor = make_executor(prep.plain["executor"])
+            try:
+                counts = execute(prep.tree, ledger, prep.folder, training, executor, threads,
+                                 quiet=quiet)
+            finally:
+                executor.close()
+            runs = ledger.runs_frame()
+            runs = runs[runs.run_id.isin(prep.tree.runs)]
+            table = write_outputs(prep, runs)
+        finally:
+            ledger.close()
+    return SweepOutcome(prep.folder, table, runs, counts, prep.tree.epochs_shared,
+                        prep.tree.epochs_unshared, time.perf_counter() - started)
+
+
+def write_outputs(prep: Prepared, runs: pd.DataFrame) -> pd.DataFrame:
+    """Sensitivity CSV and PNG for the runs of this design."""
+    plain = prep.plain
+    epochs = int(plain["schedule"]["epochs"])
+    table = sensitivity_table(runs, epochs, float(plain.get("confidence", 0.95)))
+    write_atomic(prep.folder / TABLE_CSV, table.to_csv(index=False, float_format="%.4f").encode())
+    if len(table):
+        tmp = prep.folder / f".{CURVE_PNG}.tmp.png"
+        sensitivity_curve(table, tmp, title=describe(plain),
+                          removal=plain["design"]["kind"] == "removal",
+                          tolerance=plain.get("tolerance"), epochs=None)
+        os.replace(tmp, prep.folder / CURVE_PNG)
+    return table
+
+
+def describe(plain: dict[str, Any]) -> str:
+    """One-line title: deficit, data and model targets by their short names."""
+    def short(group: str) -> str:
+        return str(plain[group].get("_target_", "?")).rsplit(".", 1)[-1]
+    return f"{short('deficit')} on {short('data')} / {short('model')}, {plain['name']}"
+
+
+def dry_run(config: DictConfig | dict | Sequence[str] = (), calibrate: bool = True) -> str:
+    """Describe the run tree, epochs with and without sharing, and an estimated time."""
+    prep = prepare(config)
+    tree = prep.tree
+    workers = prep.plain["executor"].get("workers") or os.cpu_count() or 1
+    if prep.plain["executor"]["kind"] == "serial":
+        workers = 1
+    lines = [format_tree(tree, prep.seeds), ""]
+    n_windows = sum(1 for r in tree.runs.values() if not r.is_baseline)
+    n_base = len(tree.runs) - n_windows
+    lines.append(f"{len(tree.runs)} runs ({n_windows} window runs, {n_base} baselines) over "
+                 f"{len(prep.seeds)} seeds, {len(tree.segments)} segments")
+    lines.append(f"epochs to train: {tree.epochs_shared} with sharing, "
+                 f"{tree.epochs_unshared} trained one by one from scratch "
+                 f"(saving x{tree.epochs_unshared / max(tree.epochs_shared, 1):.2f})")
+    if calibrate:
+        per_epoch = _time_one_epoch(prep)
+        chain = max(tree.critical_path(r.segment_id) for r in tree.roots())
+        seconds = max(tree.epochs_shared / workers, chain) * per_epoch
+        lines.append(f"one epoch takes about {per_epoch:.2f} s here; estimated wall time with "
+                     f"{workers} worker(s): {_human(seconds)}")
+    lines.append(f"results folder: {prep.folder}")
+    return "\n".join(lines)
+
+
+def _time_one_epoch(prep: Prepared) -> float:
+    training = {k: prep.plain[k] for k in TRAINING_KEYS}
+    threads = int(prep.plain["executor"].get("threads_per_worker", 1))
+    job = SegmentJob("calibration", training, prep.seeds[0], 0, 1, False, None, False, False,
+                     threads)
+    result = run_segment(job)
+    if result.error:
+        raise PeriodscanError(f"a trial epoch failed: {result.error.strip().splitlines()[-1]}")
+    return result.epochs[0].seconds
+
+
+def _human(seconds: float) -> str:
+    if seconds < 90:
+        return f"{seconds:.0f} s"
+    if seconds < 5400:
+        return f"{seconds / 60:.1f} min"
+    return f"{seconds / 3600:.1f} h"
