@@ -26,7 +26,7 @@ from periodscan.errors import ConfigError, bad_value
 
 #: Bump when a change to the engine changes the numbers a config produces.
 ENGINE_VERSION = 1
-GROUPS = ("data", "model", "deficit", "design", "schedule", "executor", "experiment")
+GROUPS = ("data", "model", "deficit", "design", "schedule", "executor", "monitor", "experiment")
 TRAINING_KEYS = ("data", "model", "deficit", "schedule")
 
 

@@ -34,6 +34,9 @@ CREATE TABLE IF NOT EXISTS epochs (
     segment_id TEXT, epoch INTEGER, lr REAL, train_loss REAL, train_acc REAL, test_loss REAL,
     test_acc REAL, deficit_on INTEGER, seconds REAL, PRIMARY KEY (segment_id, epoch)
 );
+CREATE TABLE IF NOT EXISTS extras (
+    segment_id TEXT, epoch INTEGER, name TEXT, value REAL, PRIMARY KEY (segment_id, epoch, name)
+);
 CREATE TABLE IF NOT EXISTS runs (
     run_id TEXT PRIMARY KEY, seed INTEGER, start_epoch INTEGER, length INTEGER,
     end_epoch INTEGER, is_baseline INTEGER, config_hash TEXT, status TEXT, path TEXT,
@@ -114,6 +117,10 @@ class Ledger:
                 [(result.segment_id, e.epoch, e.lr, e.train_loss, e.train_acc, e.test_loss,
                   e.test_acc, int(e.deficit_on), e.seconds) for e in result.epochs],
             )
+            self.conn.executemany(
+                "INSERT OR REPLACE INTO extras VALUES (?, ?, ?, ?)",
+                [(result.segment_id, epoch, name, value) for epoch, name, value in result.extras],
+            )
             if result.error is None and result.diverged_at is None:
                 self.conn.executemany(
                     "UPDATE runs SET status='done', test_acc=?, test_loss=?, n_test=?, correct=?, "
@@ -147,7 +154,13 @@ class Ledger:
 
     def epochs_frame(self) -> pd.DataFrame:
         """Per-epoch metrics of every run, following each run's path through the tree."""
-        epochs = pd.read_sql_query("SELECT * FROM epochs", self.conn)
+        return self._along_paths(pd.read_sql_query("SELECT * FROM epochs", self.conn))
+
+    def extras_frame(self) -> pd.DataFrame:
+        """Per-epoch monitor readings (name, value) of every run, along each run's path."""
+        return self._along_paths(pd.read_sql_query("SELECT * FROM extras", self.conn))
+
+    def _along_paths(self, epochs: pd.DataFrame) -> pd.DataFrame:
         paths = self.conn.execute("SELECT run_id, seed, start_epoch, length, path FROM runs")
         frames = []
         for run_id, seed, start, length, path in paths:

@@ -126,7 +126,7 @@ def run_sweep(config: DictConfig | dict | Sequence[str] = (), quiet: bool = Fals
             executor = make_executor(prep.plain["executor"])
             try:
                 counts = execute(prep.tree, ledger, prep.folder, training, executor, threads,
-                                 quiet=quiet)
+                                 quiet=quiet, monitor=prep.plain.get("monitor"))
             finally:
                 executor.close()
             runs = ledger.runs_frame()

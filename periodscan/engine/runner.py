@@ -65,8 +65,13 @@ def plan_work(tree: RunTree, ledger: Ledger, folder: Path) -> Plan:
 
 
 def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any],
-            executor, threads: int, quiet: bool = False) -> dict[str, int]:
-    """Train every needed segment; return counts of segments done, failed and diverged."""
+            executor, threads: int, quiet: bool = False,
+            monitor: dict[str, Any] | None = None) -> dict[str, int]:
+    """Train every needed segment; return counts of segments done, failed and diverged.
+
+    ``monitor`` (a ``_target_`` config) probes every epoch of the clean trunk, and of deficit
+    runs too when it says ``on_windows: true``.
+    """
     plan = plan_work(tree, ledger, folder)
     blobs: dict[str, bytes] = {}  # parent checkpoints held for children not yet submitted
     chain = {sid: tree.critical_path(sid) for sid in plan.needed}
@@ -84,7 +89,7 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
                 blob = plan.available[seg.parent].read_bytes()
         return SegmentJob(sid, training, seg.seed, seg.begin, seg.end, seg.deficit_on, blob,
                           keep_checkpoint=bool(seg.children), evaluate_at_end=bool(seg.finishes),
-                          threads=threads)
+                          threads=threads, monitor=monitor if _monitored(tree, sid, monitor) else None)
 
     waiting = set(plan.needed)
     running: dict[Any, str] = {}
@@ -142,6 +147,15 @@ def _record(tree: RunTree, ledger: Ledger, folder: Path, result: SegmentResult, 
     elif result.diverged_at is not None:
         ledger.mark_runs(below, "diverged", diverged_at=result.diverged_at, acc=result.test_acc,
                          loss=result.test_loss, n_test=result.n_test, correct=result.correct)
+
+
+def _monitored(tree: RunTree, sid: str, monitor: dict[str, Any] | None) -> bool:
+    """Clean-trunk segments always; segments at or below a deficit only if asked."""
+    if not monitor or not monitor.get("_target_"):
+        return False
+    if monitor.get("on_windows", False):
+        return True
+    return not any(tree.segments[a].deficit_on for a in tree.ancestors(sid))
 
 
 def _subtree(tree: RunTree, sid: str) -> set[str]:

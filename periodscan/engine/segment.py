@@ -40,6 +40,7 @@ class SegmentJob:
     keep_checkpoint: bool
     evaluate_at_end: bool
     threads: int = 1
+    monitor: dict[str, Any] | None = None  # config of a per-epoch probe (e.g. Fisher trace)
 
 
 @dataclass
@@ -56,6 +57,7 @@ class SegmentResult:
     diverged_at: int | None = None
     seconds: float = 0.0
     error: str | None = None
+    extras: list[tuple[int, str, float]] = field(default_factory=list)  # (epoch, name, value)
 
 
 _DATA_CACHE: dict[str, TensorData] = {}
@@ -102,9 +104,10 @@ def _train(job: SegmentJob) -> SegmentResult:
     deficit = _deficit(config, data, job.seed) if job.deficit_on else None
 
     result = SegmentResult(job.segment_id)
+    probe = _monitor(job.monitor, data, job.seed, result.extras)
     result.epochs, final, result.diverged_at = train_epochs(
         model, optimizer, data, config["schedule"], job.seed, range(job.begin, job.end),
-        lambda epoch: deficit,
+        lambda epoch: deficit, after_epoch=probe,
     )
     if job.evaluate_at_end or result.diverged_at is not None:
         result.test_acc, result.test_loss = final.acc, final.loss
@@ -121,8 +124,28 @@ def _deficit(config: dict[str, Any], data: TensorData, seed: int) -> Deficit:
     return deficit
 
 
+def _monitor(settings: dict[str, Any] | None, data: TensorData, seed: int,
+             sink: list[tuple[int, str, float]]) -> Callable[[torch.nn.Module, int], None] | None:
+    """Build the per-epoch probe from config; its readings go to ``sink``.
+
+    A monitor is any object built by ``_target_`` and called as
+    ``monitor(model, data, seed, epoch) -> dict[str, float]`` after an epoch's evaluation. It
+    must draw randomness only from its own generators and leave the model's mode to the loop.
+    """
+    if not settings or not settings.get("_target_"):
+        return None
+    monitor = instantiate(settings)
+
+    def probe(model: torch.nn.Module, epoch: int) -> None:
+        for name, value in monitor(model, data, seed, epoch).items():
+            sink.append((epoch, name, float(value)))
+
+    return probe
+
+
 def train_epochs(model, optimizer, data: TensorData, schedule: dict[str, Any], seed: int,
-                 epochs: range, deficit_at: Callable[[int], Deficit | None]):
+                 epochs: range, deficit_at: Callable[[int], Deficit | None],
+                 after_epoch: Callable[[torch.nn.Module, int], None] | None = None):
     """Train ``epochs`` in order, evaluating after each; stop at the first non-finite loss.
 
     Returns (epoch records, evaluation after the last trained epoch, diverged epoch or None).
@@ -140,6 +163,8 @@ def train_epochs(model, optimizer, data: TensorData, schedule: dict[str, Any], s
                                    deficit is not None, time.perf_counter() - tick))
         if not np.isfinite(train_loss):
             return records, held_out, epoch
+        if after_epoch is not None:
+            after_epoch(model, epoch)
     return records, held_out, None
 
 

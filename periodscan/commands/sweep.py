@@ -1,0 +1,59 @@
+"""``periodscan sweep``: run or resume a sweep, or describe it with --dry-run."""
+
+from __future__ import annotations
+
+import argparse
+
+
+def _groups_help() -> str:
+    from periodscan.config import GROUPS, available_options
+
+    lines = ["config groups (choose with GROUP=OPTION, e.g. deficit=label_noise):"]
+    for group in GROUPS:
+        lines.append(f"  {group:<10} {', '.join(available_options(group))}")
+    lines += [
+        "",
+        "any value can be overridden with Hydra's grammar, for example:",
+        "  periodscan sweep experiment=tiny seeds=3 schedule.epochs=30",
+        "  periodscan sweep design.starts=[0,10,20] design.lengths=[5,10]",
+        "  periodscan sweep 'design.starts={from: 0, to: 40, step: 4}'",
+        "  periodscan sweep design=removal design.budget=fixed_recovery design.recovery_epochs=20",
+    ]
+    return "\n".join(lines)
+
+
+def register(verbs) -> None:
+    parser = verbs.add_parser(
+        "sweep", help="run or resume a deficit-window sweep",
+        description="Run or resume a sweep. Rerunning the same command skips finished runs and "
+                    "continues from the last checkpoints.",
+        epilog=_groups_help(), formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("overrides", nargs="*", metavar="KEY=VALUE",
+                        help="Hydra overrides: config group options and values")
+    parser.add_argument("--dry-run", action="store_true",
+                        help="print the run tree, epochs with and without sharing and an "
+                             "estimated time; train nothing")
+    parser.add_argument("-q", "--quiet", action="store_true", help="no progress bar (for logs)")
+    parser.add_argument("--config-dir", metavar="DIR",
+                        help="folder of your own config groups, searched before the built-ins")
+    parser.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    from periodscan.config import compose_config
+    from periodscan.sweep import dry_run, run_sweep
+    from periodscan.terminal import format_table
+
+    cfg = compose_config(args.overrides, args.config_dir)
+    if args.dry_run:
+        print(dry_run(cfg))
+        return 0
+    outcome = run_sweep(cfg, quiet=args.quiet)
+    print(format_table(outcome.table, removal=cfg.design.kind == "removal"))
+    print(f"\ntrained {outcome.epochs_shared} epochs in the tree for runs that would take "
+          f"{outcome.epochs_unshared} from scratch; {outcome.seconds:.0f} s this session")
+    if outcome.counts["failed"] or outcome.counts["diverged"]:
+        print(f"segments failed: {outcome.counts['failed']}, diverged: "
+              f"{outcome.counts['diverged']} (see the ledger)")
+    print(f"results: {outcome.folder}/sensitivity.csv, {outcome.folder}/sensitivity.png")
+    return 0
