@@ -122,25 +122,24 @@ def seed_list(plain: dict[str, Any]) -> list[int]:
     raise bad_value("seeds", "an int >= 1 or a non-empty list of ints", seeds)
 
 
+def _span(first: int, last: int, step: int = 1) -> list[int]:
+    """``${span:0,45,5}`` in a config or override: epochs first..last (included) every step."""
+    if step < 1 or last < first:
+        raise ConfigError(f"span: need first <= last and step >= 1; got span:{first},{last},{step}")
+    return list(range(int(first), int(last) + 1, int(step)))
+
+
+OmegaConf.register_new_resolver("span", _span, replace=True)
+
+
 def expand_epochs(value: Any, field: str) -> list[int]:
-    """A list of ints, or ``{from, to, step}`` with ``to`` included."""
-    if isinstance(value, dict):
-        unknown = set(value) - {"from", "to", "step"}
-        if unknown:
-            raise bad_value(field, "a list of ints or a mapping with keys from, to, step",
-                            sorted(unknown))
-        first = _int(value.get("from", 0), f"{field}.from")
-        last = _int(value.get("to"), f"{field}.to")
-        step = _int(value.get("step", 1), f"{field}.step", 1)
-        if last < first:
-            raise bad_value(f"{field}.to", f"an int >= {field}.from ({first})", last)
-        return list(range(first, last + 1, step))
+    """A non-empty list of distinct epochs (``${span:a,b,step}`` resolves to one)."""
     if isinstance(value, list) and value:
         epochs = [_int(v, field) for v in value]
         if len(set(epochs)) != len(epochs):
             raise bad_value(field, "a list without repeated epochs", value)
         return sorted(epochs)
-    raise bad_value(field, "a non-empty list of ints or {from, to, step}", value)
+    raise bad_value(field, "a non-empty list of ints, or ${span:first,last,step}", value)
 
 
 def validate_schedule(schedule: dict[str, Any]) -> None:

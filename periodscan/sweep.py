@@ -106,8 +106,13 @@ def _open_ledger(prep: Prepared) -> Ledger:
     return ledger
 
 
-def run_sweep(config: DictConfig | dict | Sequence[str] = (), quiet: bool = False) -> SweepOutcome:
-    """Run (or resume) a sweep and write its ledger, table and curve into its folder."""
+def run_sweep(config: DictConfig | dict | Sequence[str] = (), quiet: bool = False,
+              command: str | None = None) -> SweepOutcome:
+    """Run (or resume) a sweep and write its ledger, table and curve into its folder.
+
+    ``command`` is the shell command that started it (the CLI passes it); the report shows it
+    as the way to reproduce the sweep.
+    """
     prep = prepare(config)
     started = time.perf_counter()
     threads = int(prep.plain["executor"].get("threads_per_worker", 1))
@@ -119,6 +124,8 @@ def run_sweep(config: DictConfig | dict | Sequence[str] = (), quiet: bool = Fals
     with FolderLock(prep.folder):
         ledger = _open_ledger(prep)
         try:
+            if command:
+                ledger.set_meta(command=command)
             ledger.register(prep.tree.segments.values(), prep.tree.runs.values(),
                             prep.tree.paths, prep.identity)
             write_atomic(prep.folder / "config.yaml",

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import shlex
 
 
 def _groups_help() -> str:
@@ -16,7 +17,7 @@ def _groups_help() -> str:
         "any value can be overridden with Hydra's grammar, for example:",
         "  periodscan sweep experiment=tiny seeds=3 schedule.epochs=30",
         "  periodscan sweep design.starts=[0,10,20] design.lengths=[5,10]",
-        "  periodscan sweep 'design.starts={from: 0, to: 40, step: 4}'",
+        "  periodscan sweep 'design.starts=${span:0,40,4}'   (epochs 0, 4, ..., 40)",
         "  periodscan sweep design=removal design.budget=fixed_recovery design.recovery_epochs=20",
     ]
     return "\n".join(lines)
@@ -48,7 +49,9 @@ def run(args: argparse.Namespace) -> int:
     if args.dry_run:
         print(dry_run(cfg))
         return 0
-    outcome = run_sweep(cfg, quiet=args.quiet)
+    command = shlex.join(["periodscan", "sweep", *args.overrides]
+                         + (["--config-dir", args.config_dir] if args.config_dir else []))
+    outcome = run_sweep(cfg, quiet=args.quiet, command=command)
     print(format_table(outcome.table, removal=cfg.design.kind == "removal"))
     print(f"\ntrained {outcome.epochs_shared} epochs in the tree for runs that would take "
           f"{outcome.epochs_unshared} from scratch; {outcome.seconds:.0f} s this session")
