@@ -1,4 +1,7 @@
-"""Command line: thin verbs over library calls. Errors of the user's making print one line, exit 2."""
+"""Command line: thin verbs over library calls.
+
+Errors of the user's making print one line and exit 2.
+"""
 
 from __future__ import annotations
 

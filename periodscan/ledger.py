@@ -81,7 +81,8 @@ class Ledger:
             )
             self.conn.executemany(
                 "INSERT OR IGNORE INTO runs (run_id, seed, start_epoch, length, end_epoch, "
-                "is_baseline, config_hash, status, path) VALUES (?, ?, ?, ?, ?, ?, ?, 'pending', ?)",
+                "is_baseline, config_hash, status, path) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?, 'pending', ?)",
                 [(r.run_id, r.seed, r.start, r.length, r.end, int(r.is_baseline), config_hash,
                   ",".join(paths[r.run_id])) for r in runs],
             )
@@ -104,7 +105,8 @@ class Ledger:
                        finishes: Iterable[RunSpec], threads: int) -> None:
         """Store one segment's epochs, checkpoint reference and the runs it finishes, atomically."""
         now = time.time()
-        status = "failed" if result.error else ("diverged" if result.diverged_at is not None else "done")
+        status = ("failed" if result.error else
+                  "diverged" if result.diverged_at is not None else "done")
         with self.conn:
             self.conn.execute(
                 "UPDATE segments SET status=?, seconds=?, checkpoint_file=?, checkpoint_sha256=?, "
@@ -125,8 +127,8 @@ class Ledger:
                 self.conn.executemany(
                     "UPDATE runs SET status='done', test_acc=?, test_loss=?, n_test=?, correct=?, "
                     "error=NULL, finished_at=? WHERE run_id=?",
-                    [(result.test_acc, result.test_loss, result.n_test, result.correct, now, r.run_id)
-                     for r in finishes],
+                    [(result.test_acc, result.test_loss, result.n_test, result.correct, now,
+                      r.run_id) for r in finishes],
                 )
 
     def mark_runs(self, run_ids: Iterable[str], status: str, *, error: str | None = None,
@@ -172,5 +174,6 @@ class Ledger:
         return pd.concat(frames, ignore_index=True).sort_values(["run_id", "epoch"])
 
     def correctness(self, run_id: str) -> tuple[bytes, int] | None:
-        row = self.conn.execute("SELECT correct, n_test FROM runs WHERE run_id=?", (run_id,)).fetchone()
+        row = self.conn.execute("SELECT correct, n_test FROM runs WHERE run_id=?",
+                                (run_id,)).fetchone()
         return (row[0], row[1]) if row and row[0] is not None else None

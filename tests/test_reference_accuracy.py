@@ -11,10 +11,10 @@ import pytest
 from sklearn.svm import SVC
 
 from periodscan.config import compose_config, to_plain
-from periodscan.engine.segment import train_from_scratch
-from periodscan.engine.tree import baseline
-from periodscan.engine.training import evaluate
 from periodscan.data.digits import load_digits
+from periodscan.engine.segment import train_from_scratch
+from periodscan.engine.training import evaluate
+from periodscan.engine.tree import baseline
 
 
 def test_demo_model_on_mnist1d_matches_published_cnn_accuracy():

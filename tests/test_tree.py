@@ -77,4 +77,5 @@ def test_segment_ids_depend_only_on_history():
     large = build_tree(_window_runs(0, 20, [0, 5, 10], [5]), "id")
     assert set(small.segments) < set(large.segments)
     for sid, seg in small.segments.items():
-        assert (large.segments[sid].end, large.segments[sid].deficit_on) == (seg.end, seg.deficit_on)
+        twin = large.segments[sid]
+        assert (twin.end, twin.deficit_on) == (seg.end, seg.deficit_on)

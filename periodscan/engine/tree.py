@@ -109,7 +109,8 @@ def segment_id(identity: str, seed: int, flags: str) -> str:
 def build_tree(runs: Iterable[RunSpec], identity: str) -> RunTree:
     """Group runs into shared segments, seed by seed (segments break where flags differ)."""
     runs = sorted(set(runs), key=lambda r: (r.seed, r.start, r.length, r.end))
-    tree = RunTree(segments={}, paths={r.run_id: [] for r in runs}, runs={r.run_id: r for r in runs})
+    tree = RunTree(segments={}, paths={r.run_id: [] for r in runs},
+                   runs={r.run_id: r for r in runs})
     by_seed: dict[int, list[RunSpec]] = {}
     for run in runs:
         by_seed.setdefault(run.seed, []).append(run)
