@@ -40,7 +40,8 @@ class TensorData:
 
     def validate(self) -> None:
         """Raise DataError for anything that would make training meaningless."""
-        for part, x, y in (("train", self.x_train, self.y_train), ("test", self.x_test, self.y_test)):
+        splits = (("train", self.x_train, self.y_train), ("test", self.x_test, self.y_test))
+        for part, x, y in splits:
             if x.ndim not in (3, 4):
                 raise DataError(
                     f"{self.name}: {part} inputs must have shape (N, C, L) or (N, C, H, W); "
@@ -66,4 +67,6 @@ class TensorData:
                 f"got range [{int(labels.min())}, {int(labels.max())}]"
             )
         if torch.unique(self.y_train).numel() < 2:
-            raise DataError(f"{self.name}: the training split holds a single class; need at least 2")
+            raise DataError(
+                f"{self.name}: the training split holds a single class; need at least 2"
+            )
