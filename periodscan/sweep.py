@@ -5,8 +5,10 @@
 
 from __future__ import annotations
 
+import errno
 import json
 import os
+import sqlite3
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -27,10 +29,10 @@ from periodscan.config import (
     to_plain,
     training_identity,
 )
-from periodscan.engine.checkpoint import write_atomic
+from periodscan.engine.checkpoint import remove_temporaries, write_atomic
 from periodscan.engine.executors import make_executor
 from periodscan.engine.lock import FolderLock
-from periodscan.engine.runner import execute
+from periodscan.engine.runner import CHECKPOINT_DIR, execute, kill_point
 from periodscan.engine.segment import SegmentJob, run_segment
 from periodscan.engine.tree import RunTree, build_tree
 from periodscan.errors import PeriodscanError, SweepError
@@ -88,8 +90,14 @@ def _open_ledger(prep: Prepared) -> Ledger:
             p.name not in ("sweep.lock",) for p in prep.folder.iterdir()):
         raise SweepError(f"results folder {prep.folder} exists and is not a periodscan sweep; "
                          "choose another name=")
-    ledger = Ledger(prep.folder)
-    known = ledger.get_meta("identity")
+    try:
+        ledger = Ledger(prep.folder)
+        known = ledger.get_meta("identity")
+    except sqlite3.DatabaseError as err:
+        if "not a database" not in str(err) and "malformed" not in str(err):
+            raise
+        raise SweepError(f"the ledger {prep.folder / 'ledger.sqlite'} is damaged ({err}); move "
+                         "it away to start this sweep over, or use a new name=...") from None
     if known is not None and known != prep.identity:
         before = json.loads(ledger.get_meta("training") or "{}")
         changed = [k for k in TRAINING_KEYS if before.get(k) != prep.plain[k]]
@@ -111,18 +119,29 @@ def run_sweep(config: DictConfig | dict | Sequence[str] = (), quiet: bool = Fals
     """Run (or resume) a sweep and write its ledger, table and curve into its folder.
 
     ``command`` is the shell command that started it (the CLI passes it); the report shows it
-    as the way to reproduce the sweep.
+    as the way to reproduce the sweep. A results folder that cannot be written (no space, no
+    permission) raises SweepError; the ledger stays consistent, so the same call resumes.
     """
     prep = prepare(config)
     started = time.perf_counter()
-    threads = int(prep.plain["executor"].get("threads_per_worker", 1))
-    training = {k: prep.plain[k] for k in TRAINING_KEYS}
     try:
         prep.folder.mkdir(parents=True, exist_ok=True)
-    except OSError as err:
-        raise SweepError(f"cannot create results folder {prep.folder}: {err.strerror}") from None
-    with FolderLock(prep.folder):
-        ledger = _open_ledger(prep)
+        with FolderLock(prep.folder):
+            table, runs, counts = _run_locked(prep, quiet, command)
+    except (OSError, sqlite3.Error) as err:
+        raise SweepError(_storage_message(prep.folder, err)) from None
+    return SweepOutcome(prep.folder, table, runs, counts, prep.tree.epochs_shared,
+                        prep.tree.epochs_unshared, time.perf_counter() - started)
+
+
+def _run_locked(prep: Prepared, quiet: bool, command: str | None):
+    """The sweep proper, under the folder lock: nothing is written before the executor is up."""
+    threads = int(prep.plain["executor"].get("threads_per_worker", 1))
+    training = {k: prep.plain[k] for k in TRAINING_KEYS}
+    ledger = _open_ledger(prep)
+    remove_temporaries(prep.folder, prep.folder / CHECKPOINT_DIR)
+    try:
+        executor = make_executor(prep.plain["executor"])
         try:
             if command:
                 ledger.set_meta(command=command)
@@ -130,19 +149,39 @@ def run_sweep(config: DictConfig | dict | Sequence[str] = (), quiet: bool = Fals
                             prep.tree.paths, prep.identity)
             write_atomic(prep.folder / "config.yaml",
                          OmegaConf.to_yaml(OmegaConf.create(prep.plain)).encode())
-            executor = make_executor(prep.plain["executor"])
-            try:
-                counts = execute(prep.tree, ledger, prep.folder, training, executor, threads,
-                                 quiet=quiet, monitor=prep.plain.get("monitor"))
-            finally:
-                executor.close()
-            runs = ledger.runs_frame()
-            runs = runs[runs.run_id.isin(prep.tree.runs)]
-            table = write_outputs(prep, runs)
-        finally:
-            ledger.close()
-    return SweepOutcome(prep.folder, table, runs, counts, prep.tree.epochs_shared,
-                        prep.tree.epochs_unshared, time.perf_counter() - started)
+            counts = execute(prep.tree, ledger, prep.folder, training, executor, threads,
+                             quiet=quiet, monitor=prep.plain.get("monitor"))
+        except BaseException:
+            executor.close(abort=True)
+            raise
+        executor.close()
+        runs = ledger.runs_frame()
+        runs = runs[runs.run_id.isin(prep.tree.runs)]
+        kill_point("before-outputs")
+        table = write_outputs(prep, runs)
+    finally:
+        ledger.close()
+    return table, runs, counts
+
+
+def _storage_message(folder: Path, err: OSError | sqlite3.Error) -> str:
+    """One line for a results folder that cannot be written: what failed and what to do."""
+    text = str(err).lower()
+    if isinstance(err, OSError):
+        what = f"{err.strerror or err}" + (f": {err.filename}" if err.filename else "")
+        full = err.errno == errno.ENOSPC or err.errno == errno.EDQUOT
+        denied = err.errno in (errno.EACCES, errno.EPERM, errno.EROFS)
+    else:
+        what = f"ledger: {err}"
+        full = "full" in text
+        denied = "readonly" in text or "unable to open" in text
+    if full:
+        advice = "free some space, then rerun the same command to resume"
+    elif denied:
+        advice = "choose a writable results_dir=... or fix the folder's permissions"
+    else:
+        advice = "check the results_dir=... path, then rerun the same command to resume"
+    return f"results folder {folder} cannot be written ({what}); {advice}"
 
 
 def write_outputs(prep: Prepared, runs: pd.DataFrame) -> pd.DataFrame:
@@ -186,7 +225,7 @@ def dry_run(config: DictConfig | dict | Sequence[str] = (), calibrate: bool = Tr
         per_epoch = _time_one_epoch(prep)
         chain = max(tree.critical_path(r.segment_id) for r in tree.roots())
         seconds = max(tree.epochs_shared / workers, chain) * per_epoch
-        lines.append(f"one epoch takes about {per_epoch:.2f} s on this machine now; estimated wall time with "
+        lines.append(f"one epoch takes about {per_epoch:.3g} s on this machine now; estimated wall time with "
                      f"{workers} worker(s): {_human(seconds)}")
     lines.append(f"results folder: {prep.folder}")
     return "\n".join(lines)
