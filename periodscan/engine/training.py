@@ -84,8 +84,10 @@ def train_epoch(
 
     batch_size = int(schedule["batch_size"])
     model.train()
+    # Running sums stay tensors so the loop never waits on a Python number per batch; a
+    # non-finite loss shows up in the epoch's mean (training on after it changes nothing).
     total_loss = torch.zeros((), dtype=torch.float64)
-    total_correct = 0
+    total_correct = torch.zeros((), dtype=torch.int64)
     seen = 0
     for begin in range(0, len(order), batch_size):
         idx = order[begin : begin + batch_size]
@@ -101,17 +103,16 @@ def train_epoch(
             x, y = deficit.apply(x, y, idx, deficit_gen)
         logits = model(x)
         loss = F.cross_entropy(logits, y)
-        if not torch.isfinite(loss):
-            return lr, math.nan, math.nan
         optimizer.zero_grad(set_to_none=True)
         loss.backward()
         optimizer.step()
         total_loss += loss.detach().double() * len(y)
-        total_correct += int((logits.detach().argmax(1) == y).sum())
+        total_correct += (logits.detach().argmax(1) == y).sum()
         seen += len(y)
-    if seen == 0:
+    mean_loss = float(total_loss) / seen if seen else math.nan
+    if not math.isfinite(mean_loss):
         return lr, math.nan, math.nan
-    return lr, float(total_loss) / seen, total_correct / seen
+    return lr, mean_loss, int(total_correct) / seen
 
 
 @torch.no_grad()

@@ -1,0 +1,204 @@
+"""Speed benchmark: periodscan's shared run tree against the usual ways, side by side.
+
+Runs one sweep three ways on this machine, in one process session, and checks they agree:
+
+  (a) every run trained from scratch, one after another, in this process;
+  (b) a Hydra multirun over the runs with the joblib launcher, one run per job, as many jobs
+      at once as periodscan has workers (benchmarks/hydra_one_run.py);
+  (c) ``periodscan.run_sweep`` with the local executor.
+
+Prints epochs trained, wall time, peak resident memory (this process and its children, sampled)
+and the ratios (a)/(c), (b)/(c), the ideal ratio (epochs without sharing / epochs with sharing,
+times workers for (a)) and the efficiency (achieved / ideal). Also times one epoch of
+periodscan's loop against a minimal hand-written PyTorch loop over the same tensors.
+
+    python benchmarks/speed.py                 # both sweeps of the speed issue, 1 and 2 workers
+    python benchmarks/speed.py --quick         # 1,000 training examples: same arithmetic, faster
+    python benchmarks/speed.py --sweeps 1d --workers 2
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import psutil
+import torch
+import torch.nn.functional as F
+
+from periodscan.config import TRAINING_KEYS, compose_config, plan_runs, to_plain
+from periodscan.engine.schedule import build_optimizer
+from periodscan.engine.segment import build_model, load_data, train_from_scratch
+from periodscan.engine.training import train_epoch
+from periodscan.engine.tree import build_tree
+from periodscan.sweep import run_sweep
+
+HERE = Path(__file__).resolve().parent
+SWEEPS = {
+    # 60 epochs, 10-epoch windows at 0, 5, ..., 50, 3 seeds: ideal 720 / 445 = 1.62 per seed.
+    "1d": ["design.starts=${span:0,50,5}", "design.lengths=[10]", "seeds=3"],
+    # starts 0, 6, ..., 42 x lengths 6, 12, 18, 3 seeds: ideal 1,500 / 852 = 1.76 per seed.
+    "grid": ["design.starts=${span:0,42,6}", "design.lengths=[6,12,18]", "seeds=3"],
+}
+
+
+class PeakMemory:
+    """Sample the resident memory of this process plus all its children every 0.1 s."""
+
+    def __init__(self) -> None:
+        self.peak = 0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+
+    def _run(self) -> None:
+        me = psutil.Process()
+        while not self._stop.is_set():
+            total = 0
+            for proc in [me, *me.children(recursive=True)]:
+                try:
+                    total += proc.memory_info().rss
+                except psutil.Error:
+                    pass
+            self.peak = max(self.peak, total)
+            self._stop.wait(0.1)
+
+    def __enter__(self) -> PeakMemory:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._stop.set()
+        self._thread.join()
+
+
+def way_scratch(plain: dict) -> dict[str, float]:
+    training = {k: plain[k] for k in TRAINING_KEYS}
+    accs = {}
+    for run in plan_runs(plain):
+        _, _, records = train_from_scratch(training, run, threads=1)
+        accs[run.run_id] = records[-1].test_acc
+    return accs
+
+
+def way_hydra(overrides: list[str], workers: int, n_runs: int) -> dict[str, float]:
+    with tempfile.TemporaryDirectory() as tmp:
+        cmd = [sys.executable, str(HERE / "hydra_one_run.py"), "-m",
+               f"+bench.index=range(0,{n_runs})", "hydra/launcher=joblib",
+               f"hydra.launcher.n_jobs={workers}", f"+bench.out={tmp}/runs",
+               f"hydra.sweep.dir={tmp}/multirun", "hydra/job_logging=disabled",
+               "hydra/hydra_logging=disabled", *overrides]
+        subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL)
+        return {json.loads(p.read_text())["run_id"]: json.loads(p.read_text())["test_acc"]
+                for p in Path(tmp, "runs").glob("*.json")}
+
+
+def way_periodscan(overrides: list[str], workers: int) -> dict[str, float]:
+    with tempfile.TemporaryDirectory() as tmp:
+        outcome = run_sweep([*overrides, "executor=local", f"executor.workers={workers}",
+                             f"results_dir={tmp}", "name=bench"], quiet=True)
+        return dict(zip(outcome.runs.run_id, outcome.runs.test_acc, strict=True))
+
+
+def timed(fn, *args):
+    with PeakMemory() as memory:
+        start = time.perf_counter()
+        result = fn(*args)
+        seconds = time.perf_counter() - start
+    return result, seconds, memory.peak
+
+
+def _minimal_epoch(model, opt, data, batch: int) -> None:
+    """The loop anyone would write: shuffle, slice, forward, backward, step."""
+    x, y = data.x_train, data.y_train
+    model.train()
+    order = torch.randperm(len(y))
+    for begin in range(0, len(y), batch):
+        idx = order[begin:begin + batch]
+        loss = F.cross_entropy(model(x[idx]), y[idx])
+        opt.zero_grad(set_to_none=True)
+        loss.backward()
+        opt.step()
+
+
+def loop_overhead(plain: dict, repeats: int = 9) -> tuple[float, float]:
+    """Median seconds per epoch: periodscan's train_epoch vs a minimal loop, order alternated."""
+    torch.set_num_threads(1)
+    data = load_data(plain["data"])
+    schedule = plain["schedule"]
+    timings: dict[str, list[float]] = {"ours": [], "minimal": []}
+    for rep in range(repeats):
+        order = ("ours", "minimal") if rep % 2 == 0 else ("minimal", "ours")
+        for which in order:
+            model = build_model(plain, data, seed=rep)
+            opt = build_optimizer(model.parameters(), schedule)
+            start = time.perf_counter()
+            if which == "ours":
+                train_epoch(model, opt, data, schedule, seed=rep, epoch=0, deficit=None)
+            else:
+                _minimal_epoch(model, opt, data, int(schedule["batch_size"]))
+            timings[which].append(time.perf_counter() - start)
+    return statistics.median(timings["ours"]), statistics.median(timings["minimal"])
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--sweeps", nargs="+", default=list(SWEEPS), choices=list(SWEEPS))
+    parser.add_argument("--workers", nargs="+", type=int, default=[1, 2])
+    parser.add_argument("--quick", action="store_true",
+                        help="1,000 training examples instead of 4,000 (same epoch arithmetic)")
+    parser.add_argument("--out", default=str(HERE / "results" / "speed.txt"))
+    args = parser.parse_args()
+    extra = ["data.n_train=1000"] if args.quick else []
+
+    lines = [f"# periodscan speed benchmark  ({time.strftime('%Y-%m-%d %H:%M')}, "
+             f"{os.cpu_count()} cores, torch {torch.__version__}, 1 torch thread per worker"
+             f"{', --quick' if args.quick else ''})", ""]
+
+    def emit(text: str = "") -> None:
+        print(text, flush=True)
+        lines.append(text)
+
+    for name in args.sweeps:
+        overrides = SWEEPS[name] + extra
+        plain = to_plain(compose_config(overrides))
+        runs = plan_runs(plain)
+        tree = build_tree(runs, "bench")
+        unshared, shared = tree.epochs_unshared, tree.epochs_shared
+        emit(f"## sweep {name}: {len(runs)} runs, {unshared} epochs from scratch, "
+             f"{shared} in the tree (ideal sharing ratio {unshared / shared:.2f})")
+        acc_a, t_a, m_a = timed(way_scratch, plain)
+        emit(f"{'way':<34}{'workers':>8}{'epochs':>8}{'wall s':>9}{'peak MiB':>10}"
+             f"{'(a)/(c)':>9}{'(b)/(c)':>9}{'ideal':>7}{'effic.':>8}  same metrics")
+        emit(f"{'(a) from scratch, one by one':<34}{1:>8}{unshared:>8}{t_a:>9.1f}"
+             f"{m_a / 2**20:>10.0f}")
+        for workers in args.workers:
+            acc_b, t_b, m_b = timed(way_hydra, overrides, workers, len(runs))
+            acc_c, t_c, m_c = timed(way_periodscan, overrides, workers)
+            ideal = unshared / shared * workers
+            same_b = acc_b == acc_a
+            same_c = acc_c == acc_a
+            emit(f"{'(b) Hydra multirun + joblib':<34}{workers:>8}{unshared:>8}{t_b:>9.1f}"
+                 f"{m_b / 2**20:>10.0f}{'':>18}{'':>7}{'':>8}  {same_b}")
+            emit(f"{'(c) periodscan sweep':<34}{workers:>8}{shared:>8}{t_c:>9.1f}"
+                 f"{m_c / 2**20:>10.0f}{t_a / t_c:>9.2f}{t_b / t_c:>9.2f}{ideal:>7.2f}"
+                 f"{t_a / t_c / ideal:>8.2f}  {same_c}")
+        emit()
+
+    ours, minimal = loop_overhead(to_plain(compose_config(extra)))
+    emit(f"## one epoch of the demo (median of 9, order alternated): periodscan {ours * 1000:.0f} ms, "
+         f"minimal hand-written loop {minimal * 1000:.0f} ms, ratio {ours / minimal:.3f}")
+    Path(args.out).parent.mkdir(parents=True, exist_ok=True)
+    Path(args.out).write_text("\n".join(lines) + "\n")
+    print(f"\nwritten to {args.out}")
+
+
+if __name__ == "__main__":
+    main()
