@@ -4,7 +4,8 @@ from periodscan.errors import ConfigError, DataError, PeriodscanError, SweepErro
 
 __version__ = "0.1.0"
 
-__all__ = ["ConfigError", "DataError", "PeriodscanError", "SweepError", "run_sweep", "__version__"]
+__all__ = ["ConfigError", "DataError", "PeriodscanError", "SweepError", "load_sweep", "run_sweep",
+           "__version__"]
 
 
 def run_sweep(config=(), quiet: bool = False):
@@ -12,3 +13,10 @@ def run_sweep(config=(), quiet: bool = False):
     from periodscan.sweep import run_sweep as _run
 
     return _run(config, quiet=quiet)
+
+
+def load_sweep(sweep, results_dir="results"):
+    """Open a sweep folder (or a name under ``results_dir``) for reading (see api.py)."""
+    from periodscan.api import load_sweep as _load
+
+    return _load(sweep, results_dir)

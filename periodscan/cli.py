@@ -22,6 +22,10 @@ sensitivity table and curve to results/<name>/."""
 #: Modules under periodscan.commands, one per verb, in the order --help lists them.
 COMMANDS = (
     "sweep",
+    "forecast",
+    "status",
+    "report",
+    "plan",
 )
 
 
@@ -38,7 +42,13 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, extra = parser.parse_known_args(argv)
+    # Overrides may come after options (``sweep -q seeds=3``); argparse leaves those over.
+    if extra and hasattr(args, "overrides") and all("=" in e and not e.startswith("-")
+                                                    for e in extra):
+        args.overrides = [*args.overrides, *extra]
+    elif extra:
+        parser.error(f"unrecognized arguments: {' '.join(extra)}")
     warnings.filterwarnings("default", category=UserWarning, module="periodscan")
     try:
         return args.func(args)

@@ -188,12 +188,15 @@ def write_outputs(prep: Prepared, runs: pd.DataFrame) -> pd.DataFrame:
     """Sensitivity CSV and PNG for the runs of this design."""
     plain = prep.plain
     epochs = int(plain["schedule"]["epochs"])
-    table = sensitivity_table(runs, epochs, float(plain.get("confidence", 0.95)))
+    removal = plain["design"]["kind"] == "removal"
+    table = sensitivity_table(runs, epochs, float(plain.get("confidence", 0.95)),
+                              tolerance=plain.get("tolerance"),
+                              family="all" if removal else "length")
     write_atomic(prep.folder / TABLE_CSV, table.to_csv(index=False, float_format="%.4f").encode())
     if len(table):
         tmp = prep.folder / f".{CURVE_PNG}.tmp.png"
         sensitivity_curve(table, tmp, title=describe(plain),
-                          removal=plain["design"]["kind"] == "removal",
+                          removal=removal,
                           tolerance=plain.get("tolerance"), epochs=None)
         os.replace(tmp, prep.folder / CURVE_PNG)
     return table
@@ -225,8 +228,8 @@ def dry_run(config: DictConfig | dict | Sequence[str] = (), calibrate: bool = Tr
         per_epoch = _time_one_epoch(prep)
         chain = max(tree.critical_path(r.segment_id) for r in tree.roots())
         seconds = max(tree.epochs_shared / workers, chain) * per_epoch
-        lines.append(f"one epoch takes about {per_epoch:.3g} s on this machine now; estimated wall time with "
-                     f"{workers} worker(s): {_human(seconds)}")
+        lines.append(f"one epoch takes about {per_epoch:.3g} s on this machine now; estimated "
+                     f"wall time with {workers} worker(s): {_human(seconds)}")
     lines.append(f"results folder: {prep.folder}")
     return "\n".join(lines)
 

@@ -1,0 +1,33 @@
+"""``periodscan status``: progress of a running or stopped sweep, read from its ledger."""
+
+from __future__ import annotations
+
+import argparse
+
+from periodscan.commands.report import add_sweep_argument
+
+
+def register(verbs) -> None:
+    parser = verbs.add_parser(
+        "status", help="progress of a running or stopped sweep",
+        description="Show runs and epochs done out of the total, failures, and an ETA from the "
+                    "epoch times measured so far. Safe to run while the sweep trains.")
+    add_sweep_argument(parser)
+    parser.add_argument("--json", action="store_true", help="print the status as JSON")
+    parser.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    import dataclasses
+    import json
+
+    from periodscan.api import load_sweep
+    from periodscan.terminal import format_status
+
+    with load_sweep(args.sweep, args.results_dir) as view:
+        status = view.status()
+    if args.json:
+        print(json.dumps(dataclasses.asdict(status), indent=2))
+    else:
+        print(format_status(status))
+    return 0
