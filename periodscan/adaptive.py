@@ -69,7 +69,8 @@ def _settings(plain: dict[str, Any]) -> dict[str, Any]:
     last = epochs - length if last is None else _int(last, "design.last_start", first)
     if last > epochs - length:
         raise bad_value("design.last_start",
-                        f"an int <= {epochs - length} (the window must end by epoch {epochs})", last)
+                        f"an int <= {epochs - length} (windows must end by epoch {epochs})",
+                        last)
     seeds_initial = _int(design.get("seeds_initial", 3), "design.seeds_initial", 2)
     seeds_max = _int(design.get("seeds_max", 8), "design.seeds_max", seeds_initial)
     seeds_step = _int(design.get("seeds_step", 2), "design.seeds_step", 1)
