@@ -7,8 +7,11 @@ and what was given.
 
 from __future__ import annotations
 
+import difflib
+import functools
 import hashlib
 import json
+import math
 import os
 import re
 from collections.abc import Sequence
@@ -17,7 +20,8 @@ from pathlib import Path
 from typing import Any
 
 from hydra import compose, initialize_config_dir
-from hydra.errors import HydraException
+from hydra.core.override_parser.overrides_parser import OverridesParser
+from hydra.errors import HydraException, OverrideParseException
 from omegaconf import DictConfig, OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
@@ -50,7 +54,55 @@ def compose_config(overrides: Sequence[str] = (), extra_dir: str | None = None) 
         with initialize_config_dir(config_dir=config_dir(), version_base="1.3"):
             return compose(config_name="config", overrides=overrides)
     except (HydraException, OmegaConfBaseException) as err:
+        unknown = _struct_key(err)
+        if unknown is not None:
+            raise ConfigError(_unknown_override(unknown, overrides)) from None
+        if isinstance(err, OverrideParseException):
+            raise ConfigError(_unparsable(overrides, err)) from None
         raise ConfigError(_one_line(err)) from None
+
+
+def _unparsable(overrides: list[str], err: Exception) -> str:
+    """Name the override Hydra's grammar cannot read, with the parser's complaint."""
+    parser = OverridesParser.create()
+    why = str(err).splitlines()[0] if str(err) else "syntax error"
+    for override in overrides:
+        try:
+            parser.parse_overrides([override])
+        except OverrideParseException:
+            return (f"cannot read the override {override!r}: {why} (Hydra's override grammar: "
+                    "key=value, key=[a,b], group=option)")
+    return f"cannot read the overrides: {why}"
+
+
+def _struct_key(err: Exception) -> str | None:
+    """The full key of an override that names a key the config does not have, if that failed."""
+    cause = err.__cause__
+    if cause is not None and "not in struct" in str(cause):
+        return getattr(cause, "full_key", None)
+    return None
+
+
+def _unknown_override(key: str, overrides: list[str]) -> str:
+    """Say which key is unknown, which keys its parent has, and the closest one."""
+    parent, _, leaf = key.rpartition(".")
+    same = [o for o in overrides if o.split("=", 1)[0].lstrip("+~") != key]
+    try:
+        with initialize_config_dir(config_dir=config_dir(), version_base="1.3"):
+            node = compose(config_name="config", overrides=same)
+        for part in filter(None, parent.split(".")):
+            node = node[part]
+        known = sorted(str(k) for k in node.keys())
+    except Exception:  # noqa: BLE001 - the message just lists no alternatives then
+        known = []
+    return _unknown_message(key, leaf, known)
+
+
+def _unknown_message(key: str, leaf: str, known: list[str]) -> str:
+    where = f"'{key.rpartition('.')[0]}'" if "." in key else "the top level of the config"
+    close = difflib.get_close_matches(leaf, known, n=1)
+    hint = f" Did you mean '{close[0]}'?" if close else ""
+    return f"Unknown key '{key}': {where} has only {', '.join(known) or '(none)'}.{hint}"
 
 
 def _one_line(err: Exception) -> str:
@@ -165,6 +217,64 @@ def validate_schedule(schedule: dict[str, Any]) -> None:
     _int(augment.get("max_shift", 0), "schedule.augment.max_shift")
 
 
+#: Groups read only by periodscan itself: every key must be one a shipped option of the group
+#: has. (data, model, deficit and monitor are ``_target_`` calls: a wrong keyword is refused
+#: when they are built.)
+CHECKED_GROUPS = ("schedule", "design", "executor")
+
+
+def _key_tree(into: dict[str, Any], node: Any) -> None:
+    """Merge the nested key structure of ``node`` into ``into`` (leaves become None)."""
+    for key, value in node.items():
+        if isinstance(value, dict):
+            sub = into.get(key)
+            if not isinstance(sub, dict):
+                sub = into[key] = {}
+            _key_tree(sub, value)
+        else:
+            into.setdefault(key, None)
+
+
+@functools.lru_cache(maxsize=1)
+def known_keys() -> dict[str, Any]:
+    """Keys the shipped configs define: the root's, and each checked group's (union of options)."""
+    root = OmegaConf.to_container(OmegaConf.load(Path(config_dir()) / "config.yaml"))
+    tree: dict[str, Any] = {k: None for k in root if k != "defaults"}
+    tree.update({g: None for g in GROUPS if g != "experiment"})
+    for group in CHECKED_GROUPS:
+        tree[group] = {}
+        for path in sorted((Path(config_dir()) / group).glob("*.yaml")):
+            option = OmegaConf.to_container(OmegaConf.load(path))
+            _key_tree(tree[group], option or {})
+    return tree
+
+
+def check_known_keys(plain: dict[str, Any]) -> None:
+    """Refuse keys no periodscan code reads (a misspelling in a preset or a ``+key=`` override)."""
+    def walk(node: dict[str, Any], known: dict[str, Any], prefix: str) -> None:
+        for key, value in node.items():
+            full = f"{prefix}{key}"
+            if key not in known:
+                raise ConfigError(_unknown_message(full, str(key), sorted(known)))
+            if isinstance(value, dict) and isinstance(known[key], dict):
+                walk(value, known[key], f"{full}.")
+
+    walk(plain, known_keys(), "")
+
+
+def validate_run_settings(plain: dict[str, Any]) -> None:
+    """Root settings that shape the analysis: confidence level and tolerance (points)."""
+    confidence = plain.get("confidence", 0.95)
+    if (isinstance(confidence, bool) or not isinstance(confidence, (int, float))
+            or not 0.0 < confidence < 1.0):
+        raise bad_value("confidence", "a number in the open interval (0, 1)", confidence)
+    tolerance = plain.get("tolerance")
+    if tolerance is not None and (
+            isinstance(tolerance, bool) or not isinstance(tolerance, (int, float))
+            or not math.isfinite(tolerance) or tolerance < 0):
+        raise bad_value("tolerance", "null or a finite number >= 0 (accuracy points)", tolerance)
+
+
 def validate_executor(executor: dict[str, Any]) -> None:
     kinds = ("serial", "local", "dask")
     if executor.get("kind") not in kinds:
@@ -173,10 +283,16 @@ def validate_executor(executor: dict[str, Any]) -> None:
     if executor.get("workers") is not None:
         _int(executor["workers"], "executor.workers", 1)
     _int(executor.get("threads_per_worker", 1), "executor.threads_per_worker", 1)
+    address = executor.get("address")
+    if address is not None and (not isinstance(address, str) or ":" not in address):
+        raise bad_value("executor.address", "null or a Dask scheduler address such as "
+                        "'tcp://host:8786' or 'host:8786'", address)
 
 
 def plan_runs(plain: dict[str, Any]) -> list[RunSpec]:
     """Validate the design against the schedule and list every run (baselines included)."""
+    check_known_keys(plain)
+    validate_run_settings(plain)
     validate_schedule(plain["schedule"])
     validate_executor(plain["executor"])
     seeds = seed_list(plain)

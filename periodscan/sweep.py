@@ -179,8 +179,10 @@ def _storage_message(folder: Path, err: OSError | sqlite3.Error) -> str:
         advice = "free some space, then rerun the same command to resume"
     elif denied:
         advice = "choose a writable results_dir=... or fix the folder's permissions"
+    elif isinstance(err, OSError) and err.errno in (errno.ENOTDIR, errno.EEXIST):
+        advice = "a file stands where a folder must be; check the results_dir=... path"
     else:
-        advice = "check the results_dir=... path, then rerun the same command to resume"
+        advice = "fix the results folder, then rerun the same command to resume"
     return f"results folder {folder} cannot be written ({what}); {advice}"
 
 

@@ -4,6 +4,11 @@ from __future__ import annotations
 
 import argparse
 import shlex
+import sys
+
+#: Exit codes beyond 0 (done) and 2 (a user error, printed as one line by the CLI).
+EXIT_NO_BASELINE = 3
+EXIT_SOME_FAILED = 4
 
 
 def _groups_help() -> str:
@@ -19,6 +24,14 @@ def _groups_help() -> str:
         "  periodscan sweep design.starts=[0,10,20] design.lengths=[5,10]",
         "  periodscan sweep 'design.starts=${span:0,40,4}'   (epochs 0, 4, ..., 40)",
         "  periodscan sweep design=removal design.budget=fixed_recovery design.recovery_epochs=20",
+        "",
+        "exit status:",
+        "  0  sweep complete (diverged runs are results and are listed)",
+        "  2  bad config, data or results folder: one line on stderr; finished results are kept",
+        f"  {EXIT_NO_BASELINE}  no baseline finished (e.g. every run diverged: learning rate too "
+        "high), so no damage",
+        f"  {EXIT_SOME_FAILED}  some runs failed with an error (`periodscan status` lists them); "
+        "rerun to retry",
     ]
     return "\n".join(lines)
 
@@ -59,4 +72,25 @@ def run(args: argparse.Namespace) -> int:
         print(f"segments failed: {outcome.counts['failed']}, diverged: "
               f"{outcome.counts['diverged']} (see the ledger)")
     print(f"results: {outcome.folder}/sensitivity.csv, {outcome.folder}/sensitivity.png")
+    return _exit_status(outcome.runs, cfg.schedule.optimizer.lr)
+
+
+def _exit_status(runs, lr) -> int:
+    """3 when no baseline finished (damage undefined), 4 when some runs failed, else 0."""
+    status = runs.status
+    base = runs.is_baseline == 1
+    if not (status[base] == "done").any():
+        if (status == "diverged").all():
+            why = (f"every run diverged (non-finite training loss); schedule.optimizer.lr={lr} "
+                   "is probably too high")
+        else:
+            counts = ", ".join(f"{n} {s}" for s, n in status[base].value_counts().items())
+            why = f"no baseline run finished cleanly ({counts})"
+        print(f"periodscan: {why}; damage cannot be measured", file=sys.stderr)
+        return EXIT_NO_BASELINE
+    failed = int((status == "failed").sum())
+    if failed:
+        print(f"periodscan: {failed} run(s) failed with an error (periodscan status lists them); "
+              "rerun the same command to retry them", file=sys.stderr)
+        return EXIT_SOME_FAILED
     return 0

@@ -65,6 +65,8 @@ def load_npz(
         _get(arrays, path, *missing)  # raises, naming the missing array
     xa = to_channels_first(_inputs(xa, path, x_train), layout, f"{path}: {x_train}")
     ya = _labels(ya, path, y_train, len(xa), x_train)
+    if len(ya) == 0:
+        raise DataError(f"{path}: '{y_train}' is empty; need examples of at least 2 classes")
     if all(has_test):
         xb = to_channels_first(_inputs(arrays[x_test], path, x_test), layout, f"{path}: {x_test}")
         yb = _labels(arrays[y_test], path, y_test, len(xb), x_test)

@@ -53,6 +53,35 @@ def write_atomic(path: str | os.PathLike, blob: bytes) -> None:
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+    _fsync_folder(path.parent)
+
+
+def _fsync_folder(folder: Path) -> None:
+    """Make the rename itself durable (POSIX); a no-op where folders cannot be opened."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def remove_temporaries(*folders: str | os.PathLike) -> int:
+    """Delete half-written ``.<name>.*.tmp`` files a killed sweep left behind; return how many.
+
+    Only call this while holding the folder's lock: a live writer's temporary would go too.
+    """
+    removed = 0
+    for folder in map(Path, folders):
+        if folder.is_dir():
+            for tmp in folder.glob(".*.tmp"):
+                tmp.unlink(missing_ok=True)
+                removed += 1
+    return removed
 
 
 def read_verified(path: str | os.PathLike, expected_sha256: str) -> bytes | None:

@@ -2,12 +2,20 @@
 
 A segment is ready when its parent's checkpoint exists. Ready segments go out longest-chain
 first, at most ``executor.slots`` at a time. Each finished segment is recorded in one ledger
-transaction (checkpoint file written atomically before), so a rerun of a killed sweep skips
-every run already done and restarts from the deepest verified checkpoint.
+transaction, after its checkpoint file has been written and renamed into place, so a rerun of
+a killed sweep skips every run already done and restarts from the deepest verified checkpoint.
+A checkpoint on disk without its ledger row (killed in between) is simply trained again; a
+ledger row naming a checkpoint that is not there cannot happen.
+
+A worker that dies is retried ``MAX_WORKER_RETRIES`` times; a segment that raises is recorded
+as failed with its error, the runs below it are marked failed, and the rest of the sweep goes on.
 """
 
 from __future__ import annotations
 
+import os
+import re
+import signal
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -22,6 +30,16 @@ from periodscan.ledger import Ledger
 
 CHECKPOINT_DIR = "checkpoints"
 MAX_WORKER_RETRIES = 2
+#: Test hook: SIGKILL the sweep process at a named point, e.g. ``before-ledger:3`` (when the
+#: third segment result is being recorded: checkpoint renamed into place, ledger not written),
+#: ``before-checkpoint:N``, ``after-ledger:N`` or ``before-outputs``. Used by tests/test_resume.py.
+KILL_ENV = "PERIODSCAN_TEST_KILL_AT"
+
+
+def kill_point(point: str) -> None:
+    """SIGKILL this process if ``PERIODSCAN_TEST_KILL_AT`` names ``point`` (tests only)."""
+    if os.environ.get(KILL_ENV) == point:
+        os.kill(os.getpid(), signal.SIGKILL)
 
 
 @dataclass
@@ -43,8 +61,9 @@ def plan_work(tree: RunTree, ledger: Ledger, folder: Path) -> Plan:
             name, digest = stored.get(sid, (None, None))
             ok = name is not None and (folder / name).is_file()
             if ok and checkpoint.read_verified(folder / name, digest) is None:
-                warnings.warn(f"checkpoint {name} does not match its recorded hash; "
-                              "retraining that segment", stacklevel=2)
+                warnings.warn(f"checkpoint {name} does not match its recorded sha256 "
+                              "(truncated or corrupted); training that segment again",
+                              stacklevel=2)
                 ok = False
             verified[sid] = ok
         return verified[sid]
@@ -87,21 +106,39 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
             blob = blobs.get(seg.parent)
             if blob is None:
                 blob = plan.available[seg.parent].read_bytes()
+        probe = monitor if _monitored(tree, sid, monitor) else None
         return SegmentJob(sid, training, seg.seed, seg.begin, seg.end, seg.deficit_on, blob,
                           keep_checkpoint=bool(seg.children), evaluate_at_end=bool(seg.finishes),
-                          threads=threads, monitor=monitor if _monitored(tree, sid, monitor) else None)
+                          threads=threads, monitor=probe)
+
+    def priority(sid: str) -> tuple:
+        """Longest chain of epochs below first; ties: clean trunk first, then by id (stable)."""
+        seg = tree.segments[sid]
+        return -chain[sid], seg.deficit_on, seg.seed, seg.begin, sid
 
     waiting = set(plan.needed)
     running: dict[Any, str] = {}
     retries: dict[str, int] = {}
     counts = {"done": 0, "failed": 0, "diverged": 0}
+    received = 0
     total = sum(tree.segments[s].epochs for s in plan.needed)
     bar = tqdm(total=total, unit="epoch", desc="sweep", disable=quiet or total == 0,
                dynamic_ncols=True, smoothing=0.1)
+
+    def to_submit(ready: list[str]) -> list[str]:
+        """Fill free slots; after a pool-breaking worker death, retry lost segments alone."""
+        if executor.isolate_retries:
+            if any(retries.get(s) for s in running.values()):
+                return []
+            retried = [s for s in ready if retries.get(s)]
+            if retried:
+                return [] if running else retried[:1]
+        return ready[: max(executor.slots - len(running), 0)]
+
     try:
         while waiting or running:
-            ready = sorted((s for s in waiting if parent_ready(s)), key=lambda s: -chain[s])
-            for sid in ready[: max(executor.slots - len(running), 0)]:
+            ready = sorted((s for s in waiting if parent_ready(s)), key=priority)
+            for sid in to_submit(ready):
                 waiting.discard(sid)
                 running[executor.submit(make_job(sid))] = sid
             if not running:
@@ -115,14 +152,22 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
                     if retries[sid] <= MAX_WORKER_RETRIES:
                         waiting.add(sid)
                         continue
-                    result = SegmentResult(sid, error=f"worker lost {retries[sid]} times: {err!r}")
-                _record(tree, ledger, folder, result, threads, blobs)
+                    why = (str(err).strip().splitlines() or [""])[0]
+                    result = SegmentResult(sid, error=f"worker lost {retries[sid]} times: "
+                                                      f"{type(err).__name__}: {why}")
+                received += 1
+                kill_point(f"before-checkpoint:{received}")
+                _record(tree, ledger, folder, result, threads, blobs, received)
+                kill_point(f"after-ledger:{received}")
                 status = ("failed" if result.error else
                           "diverged" if result.diverged_at is not None else "done")
                 counts[status] += 1
-                if status != "done":
-                    waiting -= _subtree(tree, sid)
                 bar.update(tree.segments[sid].epochs)
+                if status != "done":
+                    dropped = (_subtree(tree, sid) - {sid}) & waiting
+                    waiting -= dropped
+                    bar.total -= sum(tree.segments[s].epochs for s in dropped)
+                    bar.refresh()
                 _release(tree, blobs, waiting | set(running.values()))
     finally:
         bar.close()
@@ -130,7 +175,7 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
 
 
 def _record(tree: RunTree, ledger: Ledger, folder: Path, result: SegmentResult, threads: int,
-            blobs: dict[str, bytes]) -> None:
+            blobs: dict[str, bytes], count: int = 0) -> None:
     """Write the checkpoint (atomically), then the ledger rows, then mark runs below failures."""
     sid = result.segment_id
     seg = tree.segments[sid]
@@ -140,13 +185,27 @@ def _record(tree: RunTree, ledger: Ledger, folder: Path, result: SegmentResult, 
         digest = checkpoint.sha256(result.checkpoint)
         checkpoint.write_atomic(folder / name, result.checkpoint)
         blobs[sid] = result.checkpoint
+    kill_point(f"before-ledger:{count}")
     ledger.record_segment(result, name, digest, seg.finishes, threads)
     below = [rid for rid, path in tree.paths.items() if sid in path]
+    if result.error or result.diverged_at is not None:
+        # A grown design can route an already finished run through a new segment: keep it.
+        finished = ledger.finished_runs()
+        below = [rid for rid in below if rid not in finished]
     if result.error:
-        ledger.mark_runs(below, "failed", error=result.error.strip().splitlines()[-1])
+        ledger.mark_runs(below, "failed", error=error_line(result.error))
     elif result.diverged_at is not None:
         ledger.mark_runs(below, "diverged", diverged_at=result.diverged_at, acc=result.test_acc,
                          loss=result.test_loss, n_test=result.n_test, correct=result.correct)
+
+
+def error_line(trace: str) -> str:
+    """The ``SomeError: message`` line of a formatted traceback (its last line otherwise)."""
+    lines = trace.strip().splitlines()
+    for line in reversed(lines):
+        if re.match(r"[A-Za-z_][\w.]*: ", line):
+            return line
+    return lines[-1] if lines else trace
 
 
 def _monitored(tree: RunTree, sid: str, monitor: dict[str, Any] | None) -> bool:
