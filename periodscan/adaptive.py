@@ -19,6 +19,7 @@ Choose ``initial_step`` below the narrowest stretch you care about.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -66,7 +67,11 @@ def _settings(plain: dict[str, Any]) -> dict[str, Any]:
                         step)
     first = _int(design.get("first_start", 0), "design.first_start", 0)
     last = design.get("last_start")
-    last = epochs - length if last is None else _int(last, "design.last_start", first)
+    # Default: the latest start that still leaves a tenth of the schedule to recover (the
+    # short_recovery rule of the sensitivity table), so the edge is not set by unfinished
+    # recovery at the very end.
+    default_last = max(first, epochs - length - math.ceil(epochs / 10))
+    last = default_last if last is None else _int(last, "design.last_start", first)
     if last > epochs - length:
         raise bad_value("design.last_start",
                         f"an int <= {epochs - length} (windows must end by epoch {epochs})",
@@ -91,6 +96,18 @@ def _grid(first: int, last: int, resolution: int) -> list[int]:
 def _coarse(first: int, last: int, step: int) -> list[int]:
     starts = list(range(first, last + 1, step))
     return starts if starts[-1] == last else [*starts, last]
+
+
+def coarse_config(config: DictConfig) -> DictConfig:
+    """The first round as an ordinary window sweep (what ``--dry-run`` describes)."""
+    plain = to_plain(config)
+    settings = _settings(plain)
+    first = OmegaConf.create(plain)
+    first.design = {"kind": "window", "budget": "fixed_total", "recovery_epochs": None,
+                    "starts": _coarse(settings["first"], settings["last"], settings["step"]),
+                    "lengths": [settings["length"]]}
+    first.seeds = settings["seeds_initial"]
+    return first
 
 
 def _run_round(base: dict[str, Any], seeds: dict[int, int], length: int, quiet: bool) -> None:

@@ -311,7 +311,8 @@ def plan_runs(plain: dict[str, Any]) -> list[RunSpec]:
             raise bad_value("design.until", "ints >= 1", design.get("until"))
         windows = [(0, t) for t in until]
     else:
-        raise bad_value("design.kind", "one of 'window', 'removal'", kind)
+        raise bad_value("design.kind", "one of 'window', 'removal', 'adaptive' (adaptive runs "
+                        "through periodscan.adaptive.run_adaptive)", kind)
 
     budget = design.get("budget")
     if budget == "fixed_total":

@@ -59,6 +59,8 @@ def run(args: argparse.Namespace) -> int:
     from periodscan.terminal import format_table
 
     cfg = compose_config(args.overrides, args.config_dir)
+    if cfg.design.get("kind") == "adaptive":
+        return _run_adaptive(cfg, args)
     if args.dry_run:
         print(dry_run(cfg))
         return 0
@@ -73,6 +75,28 @@ def run(args: argparse.Namespace) -> int:
               f"{outcome.counts['diverged']} (see the ledger)")
     print(f"results: {outcome.folder}/sensitivity.csv, {outcome.folder}/sensitivity.png")
     return _exit_status(outcome.runs, cfg.schedule.optimizer.lr)
+
+
+def _run_adaptive(cfg, args: argparse.Namespace) -> int:
+    """design=adaptive: rounds of ordinary sweeps until the critical window's edges settle."""
+    from periodscan.adaptive import coarse_config, run_adaptive
+    from periodscan.sweep import dry_run
+    from periodscan.terminal import format_table
+
+    if args.dry_run:
+        print("adaptive design: the first round is this sweep; later rounds add starts and "
+              "seeds where the verdict is open, reusing everything already trained\n")
+        print(dry_run(coarse_config(cfg)))
+        return 0
+    outcome = run_adaptive(cfg, quiet=args.quiet)
+    print(format_table(outcome.table))
+    edge = outcome.critical_until
+    safe = outcome.safe_from
+    print(f"\n{outcome.length}-epoch deficit at a tolerance of {outcome.tolerance:g} points: "
+          f"latest critical start {edge if edge is not None else 'none'}; every start from "
+          f"{safe if safe is not None else '(none found)'} on is safe")
+    print(f"{outcome.rounds} round(s), {outcome.branch_epochs} branch epochs")
+    return 0
 
 
 def _exit_status(runs, lr) -> int:
