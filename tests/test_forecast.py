@@ -93,6 +93,7 @@ def test_sweep_after_forecast_reuses_the_trunks(make_config):
     cfg = make_config(seeds=2)
     ahead = forecast(cfg, quiet=True)
     assert ahead.epochs_trained == 2 * 8
+    assert ahead.remaining_epochs == ahead.sweep_epochs - 2 * 8  # the branches are left
     assert ahead.scores[["start", "length"]].values.tolist() == [
         [0, 3], [0, 4], [2, 3], [2, 4], [4, 3], [4, 4]]
     totals = ahead.readings[ahead.readings.name == TOTAL]
@@ -111,7 +112,7 @@ def test_sweep_after_forecast_reuses_the_trunks(make_config):
         alone.table.drop(columns=[c for c in alone.table if "seconds" in c]))
 
     again = forecast(cfg, quiet=True)  # everything in place: nothing to train
-    assert again.epochs_trained == 0
+    assert again.epochs_trained == 0 and again.remaining_epochs == 0
     pd.testing.assert_frame_equal(_readings(again), _readings(ahead))
 
 

@@ -81,12 +81,14 @@ def describe(outcome, overrides=()) -> str:
         lines.append(f"{window:>12} {row.score:>12.3f}  {'yes' if row.at_risk else '-'}")
     retrained = (f"{outcome.epochs_trained} trunk epochs trained" if outcome.epochs_trained
                  else "trunks already in the folder, nothing trained")
+    left = (f"{outcome.remaining_epochs} epochs, about {_human(outcome.remaining_seconds)}, "
+            "are left to train in this folder" if outcome.remaining_epochs
+            else "the sweep is already complete in this folder")
     lines += [
         "",
         f"forecast took {_human(outcome.seconds)} ({retrained}); the full sweep trains "
         f"{outcome.sweep_epochs} epochs: about {_human(outcome.sweep_seconds)} with "
-        f"{outcome.workers} worker(s) at {outcome.seconds_per_epoch:.2f} s per epoch, about "
-        f"{_human(outcome.remaining_seconds)} more now that the trunks are done",
+        f"{outcome.workers} worker(s) at {outcome.seconds_per_epoch:.2f} s per epoch; {left}",
         "A forecast from the Fisher trace of a small proxy model is a hint, not a measurement; "
         "run the sweep to measure damage:",
         "  " + shlex.join(["periodscan", "sweep", *overrides]),

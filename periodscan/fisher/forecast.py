@@ -54,7 +54,8 @@ class ForecastOutcome:
     seconds_per_epoch: float  # wall seconds per trunk epoch measured in the workers
     sweep_epochs: int  # epochs the full sweep trains with sharing
     sweep_seconds: float  # estimated wall time of the full sweep from scratch
-    remaining_seconds: float  # estimated wall time of the sweep after this forecast
+    remaining_epochs: int  # epochs the sweep still has to train in this folder
+    remaining_seconds: float  # estimated wall time of those epochs
     workers: int
 
 
@@ -116,8 +117,10 @@ def _forecast_locked(prep: Prepared, seeds: list[int], monitor: dict[str, Any], 
         if counts["failed"]:
             raise SweepError(f"{counts['failed']} trunk segment(s) failed; see the ledger in "
                              f"{prep.folder} (periodscan status)")
+        left = sum(prep.tree.segments[sid].epochs
+                   for sid in plan_work(prep.tree, ledger, prep.folder).needed)
         outcome = _predict(prep, seeds, trunk_readings(ledger, trunks),
-                           _seconds_per_epoch(ledger, trunks), trunks)
+                           _seconds_per_epoch(ledger, trunks), left)
         outcome.epochs_trained = trained
         outcome.seconds = time.perf_counter() - started
         _save(ledger, outcome, command)
@@ -244,13 +247,14 @@ def _seconds_per_epoch(ledger: Ledger, trunks: RunTree) -> float:
 
 
 def _predict(prep: Prepared, seeds: list[int], readings: pd.DataFrame, per_epoch: float,
-             trunks: RunTree) -> ForecastOutcome:
+             left: int) -> ForecastOutcome:
+    """Apply the rule; ``left`` is the number of epochs the sweep still has to train."""
     epochs = int(prep.plain["schedule"]["epochs"])
     totals = readings[readings.name == TOTAL]
     if totals.empty:
         raise SweepError("the monitor recorded no 'fisher/total' readings; use monitor=fisher "
                          "(or a monitor that records fisher/total)")
-    span = max(r.end for r in trunks.runs.values())
+    span = max(r.end for r in prep.tree.runs.values() if r.is_baseline)
     curve = mean_curve(totals, span)
     phase = critical_phase(curve, epochs=epochs)
     windows = sorted({(r.start, r.length) for r in prep.tree.runs.values() if not r.is_baseline})
@@ -259,14 +263,13 @@ def _predict(prep: Prepared, seeds: list[int], readings: pd.DataFrame, per_epoch
     tree = prep.tree
     chain = max(tree.critical_path(r.segment_id) for r in tree.roots())
     sweep_seconds = max(tree.epochs_shared / workers, chain) * per_epoch
-    left = tree.epochs_shared - sum(s.epochs for s in trunks.segments.values())
     return ForecastOutcome(
         folder=prep.folder, phase=phase, scores=scores,
         curve=pd.DataFrame({"epoch": range(len(curve)), "trace": curve}),
         readings=readings, seeds=list(seeds), seconds=0.0, epochs_trained=0,
         seconds_per_epoch=per_epoch, sweep_epochs=tree.epochs_shared,
-        sweep_seconds=sweep_seconds, remaining_seconds=left / workers * per_epoch,
-        workers=workers)
+        sweep_seconds=sweep_seconds, remaining_epochs=left,
+        remaining_seconds=left / workers * per_epoch, workers=workers)
 
 
 def _workers(executor: dict[str, Any]) -> int:
