@@ -29,10 +29,10 @@ from omegaconf import DictConfig, OmegaConf
 
 from periodscan.analysis.sensitivity import sensitivity_table
 from periodscan.analysis.verdicts import CRITICAL, SAFE
-from periodscan.config import _int, compose_config, results_folder, to_plain
+from periodscan.config import _int, results_folder, to_plain
 from periodscan.errors import ConfigError, bad_value
 from periodscan.ledger import Ledger
-from periodscan.sweep import run_sweep
+from periodscan.sweep import plain_config, run_sweep
 
 
 @dataclass
@@ -170,12 +170,7 @@ def boundaries(table: pd.DataFrame) -> tuple[int | None, int | None]:
 def run_adaptive(config: DictConfig | dict | Sequence[str] = (),
                  quiet: bool = False) -> AdaptiveOutcome:
     """Run the adaptive design described by ``config`` (``design=adaptive``)."""
-    if isinstance(config, DictConfig):
-        plain = to_plain(config)
-    elif isinstance(config, dict):
-        plain = to_plain(OmegaConf.create(config))
-    else:
-        plain = to_plain(compose_config(list(config)))
+    plain = plain_config(config)
     if plain["design"].get("kind") != "adaptive":
         raise ConfigError("run_adaptive needs design.kind 'adaptive' (use design=adaptive)")
     settings = _settings(plain)

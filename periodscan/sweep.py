@@ -68,14 +68,18 @@ class SweepOutcome:
     seconds: float
 
 
+def plain_config(config: DictConfig | dict | Sequence[str]) -> dict[str, Any]:
+    """A composed config, a plain dict or Hydra override strings, as resolved plain dicts."""
+    if isinstance(config, DictConfig):
+        return to_plain(config)
+    if isinstance(config, dict):
+        return to_plain(OmegaConf.create(config))
+    return to_plain(compose_config(list(config)))
+
+
 def prepare(config: DictConfig | dict | Sequence[str]) -> Prepared:
     """Accept a composed config, a plain dict or Hydra override strings; validate everything."""
-    if isinstance(config, DictConfig):
-        plain = to_plain(config)
-    elif isinstance(config, dict):
-        plain = to_plain(OmegaConf.create(config))
-    else:
-        plain = to_plain(compose_config(list(config)))
+    plain = plain_config(config)
     runs = plan_runs(plain)
     check_components(plain)
     identity = training_identity(plain)
