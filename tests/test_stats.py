@@ -78,6 +78,24 @@ def test_t_interval_small_samples_and_floor():
     assert floored.method == "t, sd floor"
 
 
+def test_rounding_sized_spread_counts_as_no_spread():
+    # Three seeds that each lost 3 of 1,000 test examples, computed the way the table does
+    # (baseline minus window accuracy, in points): equal damages whose float spread is ~6e-15.
+    correct = np.array([956, 873, 940])
+    damage = (correct / 1000 - (correct - 3) / 1000) * 100
+    assert 0 < damage.std(ddof=1) < 1e-9
+    floored = t_interval(damage, 0.95, sd_floor=0.1)
+    half = stats.t.ppf(0.975, 2) * 0.1 / math.sqrt(3)  # Student-t half width, sd = floor
+    assert floored.method == "t, sd floor"
+    assert floored.high - floored.low == pytest.approx(2 * half)
+    # Without the floor a rounding-sized spread would make the test against a tolerance of
+    # 0.5 points "certain" (p ~ 0); with it, the p-value is the floored t test's.
+    test = t_test_vs(damage, 0.5, sd_floor=0.1)
+    ref = stats.ttest_1samp([0.3 - 0.1, 0.3, 0.3 + 0.1], 0.5)  # same mean 0.3, sd 0.1
+    assert test.pvalue == pytest.approx(ref.pvalue)
+    assert bootstrap_interval(damage, 0.95).method == "t"
+
+
 @pytest.mark.parametrize("method", ["BCa", "percentile"])
 def test_bootstrap_interval_matches_scipy_bootstrap(method):
     # Reference: scipy.stats.bootstrap on the same sample, statistic and seed.

@@ -46,10 +46,22 @@ def _clean(values) -> np.ndarray:
     return values[np.isfinite(values)]
 
 
+#: A spread this small relative to the values is rounding, not variation: accuracies that are
+#: equal as fractions of the test set can differ in the last bits after subtraction (sd ~1e-15).
+NO_SPREAD_RELATIVE = 1e-9
+
+
+def _no_spread(values: np.ndarray, sd: float) -> bool:
+    """True when the sample's standard deviation is zero up to floating-point rounding."""
+    scale = max(1.0, float(np.abs(values).max())) if len(values) else 1.0
+    return sd <= NO_SPREAD_RELATIVE * scale
+
+
 def t_interval(values, confidence: float = 0.95, sd_floor: float = 0.0) -> Interval:
     """Student-t interval for the mean of paired differences (NaN bounds for n < 2).
 
-    ``sd_floor`` replaces a standard deviation of exactly zero (every seed gave the same damage):
+    ``sd_floor`` replaces a standard deviation of zero (every seed gave the same damage, up to
+    floating-point rounding):
     with discrete accuracies that happens by chance, and a zero-width interval would claim a
     certainty the data do not have. The method then reads ``"t, sd floor"``.
     """
@@ -62,7 +74,7 @@ def t_interval(values, confidence: float = 0.95, sd_floor: float = 0.0) -> Inter
         return Interval(mean, math.nan, math.nan, n, "t")
     sd = float(values.std(ddof=1))
     method = "t"
-    if sd == 0.0:
+    if _no_spread(values, sd):
         if sd_floor <= 0:
             return Interval(mean, mean, mean, n, method)
         sd, method = sd_floor, "t, sd floor"
@@ -77,7 +89,7 @@ def bootstrap_interval(values, confidence: float = 0.95, method: str = "BCa",
     ``"percentile"``); degenerate samples (no spread) fall back to :func:`t_interval`."""
     values = _clean(values)
     n = len(values)
-    if n < 2 or float(values.std()) == 0.0:
+    if n < 2 or _no_spread(values, float(values.std())):
         return t_interval(values, confidence)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # scipy warns on degenerate BCa; we check for NaN below
@@ -124,8 +136,8 @@ def t_test_vs(values, reference: float, sd_floor: float = 0.0) -> TTest:
         return TTest(mean, math.nan, n, math.nan, math.nan)
     mean = float(values.mean())
     sd = float(values.std(ddof=1))
-    if sd == 0.0 and sd_floor > 0:
-        sd = sd_floor
+    if _no_spread(values, sd):
+        sd = sd_floor if sd_floor > 0 else 0.0
     if sd == 0.0:
         gap = mean - reference
         stat = math.copysign(math.inf, gap) if gap else math.nan
