@@ -1,20 +1,29 @@
 """The adaptive design: find the edges of the critical window with as few runs as possible.
 
-For one deficit length and the sweep's tolerance, a coarse pass measures every
-``initial_step``-th window start with ``seeds_initial`` seeds. Each round then
+For one deficit length and the sweep's tolerance it works in two phases, each round an ordinary
+sweep of the same training config in the same folder (runs, trunks and checkpoints of earlier
+rounds are reused, and each run is the very run a full grid would train: exact branching).
 
-* adds seeds (``seeds_step`` at a time, up to ``seeds_max``) to starts whose verdict is still
-  undetermined, i.e. whose interval straddles the tolerance, and
-* adds the midpoint between two neighbouring measured starts whose verdicts differ, down to
-  ``resolution`` epochs apart,
+1. *Locate* (cheap): every ``initial_step``-th start with ``seeds_initial`` seeds, then the
+   midpoint between neighbouring starts whose mean damage falls on different sides of the
+   tolerance, down to ``resolution`` epochs apart.
+2. *Confirm*: verdicts are only taken at the seed cap (``seeds_max``). Starts from the last one
+   whose mean is above the tolerance to the end are raised to the cap; if the latest of them is
+   not critical at the cap, the start before it is raised too, until a critical start is reached
+   (or the first start). Midpoints are added at the cap where two confirmed neighbours disagree.
+   Seeds are thus added only where the boundary is decided; starts well inside the critical
+   stretch keep ``seeds_initial`` seeds and are reported undetermined ("not confirmed").
 
-until nothing changes. Every round is an ordinary sweep of the same training config in the same
-folder, so runs, trunks and checkpoints from earlier rounds are reused, and each run is the very
-run a full grid would train (exact branching).
+Why verdicts only at the cap: stopping a start as soon as its interval clears the tolerance
+(optional stopping) inflates the error rate of a fixed-level test, so every verdict here rests on
+the fixed number ``seeds_max`` of seeds. Holm's correction is applied over the whole grid of
+candidate starts (``first_start .. last_start`` every ``resolution``), the starts not measured at
+the cap entering with p = 1: the adaptive design is never bolder than the full grid would be with
+the same seeds, and with the same runs it can only call fewer windows critical or safe.
 
-The refinement assumes the verdict changes only a few times along the start axis: a critical
-stretch narrower than ``initial_step`` that falls between two safe coarse starts is missed.
-Choose ``initial_step`` below the narrowest stretch you care about.
+The search assumes the mean damage crosses the tolerance a few times at most along the start
+axis: a critical stretch narrower than ``initial_step`` between two harmless coarse starts is
+missed. Choose ``initial_step`` below the narrowest stretch you care about.
 """
 
 from __future__ import annotations
@@ -28,7 +37,7 @@ import pandas as pd
 from omegaconf import DictConfig, OmegaConf
 
 from periodscan.analysis.sensitivity import sensitivity_table
-from periodscan.analysis.verdicts import CRITICAL, SAFE
+from periodscan.analysis.verdicts import CRITICAL, SAFE, UNDETERMINED
 from periodscan.config import _int, results_folder, to_plain
 from periodscan.errors import ConfigError, bad_value
 from periodscan.ledger import Ledger
@@ -78,14 +87,13 @@ def _settings(plain: dict[str, Any]) -> dict[str, Any]:
                         last)
     seeds_initial = _int(design.get("seeds_initial", 3), "design.seeds_initial", 2)
     seeds_max = _int(design.get("seeds_max", 8), "design.seeds_max", seeds_initial)
-    seeds_step = _int(design.get("seeds_step", 2), "design.seeds_step", 1)
     max_rounds = _int(design.get("max_rounds", 12), "design.max_rounds", 1)
     tolerance = plain.get("tolerance")
     if not isinstance(tolerance, (int, float)) or isinstance(tolerance, bool):
         raise bad_value("tolerance", "a number (accuracy points) for the adaptive design",
                         tolerance)
     return dict(length=length, resolution=resolution, step=step, first=first, last=last,
-                seeds_initial=seeds_initial, seeds_max=seeds_max, seeds_step=seeds_step,
+                seeds_initial=seeds_initial, seeds_max=seeds_max,
                 max_rounds=max_rounds, tolerance=float(tolerance), epochs=epochs)
 
 
@@ -124,6 +132,11 @@ def _run_round(base: dict[str, Any], seeds: dict[int, int], length: int, quiet: 
 
 
 def _table(folder, settings, seeds: dict[int, int], confidence: float) -> pd.DataFrame:
+    """Sensitivity table of the measured starts: verdicts only for starts at the seed cap.
+
+    Capped starts are labelled with Holm's correction padded to the full candidate grid; the
+    others are listed with their damage estimate, verdict undetermined and ``confirmed`` False.
+    """
     ledger = Ledger(folder)
     try:
         runs = ledger.runs_frame()
@@ -133,24 +146,76 @@ def _table(folder, settings, seeds: dict[int, int], confidence: float) -> pd.Dat
                 ((runs.length == settings["length"]) & runs.start_epoch.isin(list(seeds)))]
     mine = mine[mine.end_epoch == settings["epochs"]]
     keep = mine.apply(lambda r: r.is_baseline == 1 or r.seed < seeds[int(r.start_epoch)], axis=1)
-    return sensitivity_table(mine[keep], settings["epochs"], confidence,
-                             tolerance=settings["tolerance"])
+    mine = mine[keep]
+    cap = settings["seeds_max"]
+    capped = {s for s, n in seeds.items() if n >= cap}
+    is_capped = mine.start_epoch.isin(list(capped))
+    family = len(_grid(settings["first"], settings["last"], settings["resolution"]))
+    parts = []
+    if capped:
+        part = sensitivity_table(mine[(mine.is_baseline == 1) | is_capped], settings["epochs"],
+                                 confidence, tolerance=settings["tolerance"],
+                                 family_size=family)
+        parts.append(part.assign(confirmed=True))
+    if len(capped) < len(seeds):
+        part = sensitivity_table(mine[(mine.is_baseline == 1) | ~is_capped], settings["epochs"],
+                                 confidence, tolerance=settings["tolerance"],
+                                 family_size=family)
+        for column in ("p_holm", "holm_low", "holm_high"):
+            part[column] = float("nan")
+        part["verdict"] = UNDETERMINED
+        part["more_seeds"] = [cap - n for n in part.seeds]
+        parts.append(part.assign(confirmed=False))
+    if not parts:
+        return pd.DataFrame()
+    table = pd.concat(parts, ignore_index=True)
+    return table.sort_values("start").reset_index(drop=True)
 
 
-def _refine(table: pd.DataFrame, seeds: dict[int, int], settings) -> dict[int, int]:
-    """Starts to add and starts to give more seeds; empty when the boundary is settled."""
-    verdict = dict(zip(table.start, table.verdict, strict=True))
+def _locate(table: pd.DataFrame, seeds: dict[int, int], settings) -> dict[int, int]:
+    """Midpoints between neighbours whose mean damage lies on different sides of the tolerance."""
+    above = {int(s): bool(d > settings["tolerance"]) for s, d in zip(table.start, table.damage,
+                                                                       strict=True)}
     wanted: dict[int, int] = {}
-    for start in seeds:
-        if verdict.get(start) not in (CRITICAL, SAFE) and seeds[start] < settings["seeds_max"]:
-            wanted[start] = min(seeds[start] + settings["seeds_step"], settings["seeds_max"])
     ordered = sorted(seeds)
-    res = settings["resolution"]
     for a, b in zip(ordered, ordered[1:], strict=False):
-        if verdict.get(a) != verdict.get(b) and b - a > res:
-            middle = a + ((b - a) // 2 // res) * res
-            if middle not in seeds and a < middle < b:
+        if a in above and b in above and above[a] != above[b]:
+            middle = _middle(a, b, settings["resolution"])
+            if middle is not None and middle not in seeds:
                 wanted[middle] = settings["seeds_initial"]
+    return wanted
+
+
+def _middle(a: int, b: int, resolution: int) -> int | None:
+    middle = a + ((b - a) // 2 // resolution) * resolution
+    return middle if a < middle < b else None
+
+
+def _confirm(table: pd.DataFrame, seeds: dict[int, int], settings) -> dict[int, int]:
+    """Starts to raise to the seed cap (and midpoints to add at the cap); empty when settled."""
+    cap = settings["seeds_max"]
+    ordered = sorted(seeds)
+    row = {int(s): r for s, r in zip(table.start, table.itertuples(), strict=True)}
+    above = [s for s in ordered if s in row and row[s].damage > settings["tolerance"]]
+    # Everything from the last start above the tolerance onward decides the boundary.
+    begin = above[-1] if above else ordered[0]
+    wanted = {s: cap for s in ordered if s >= begin and seeds[s] < cap}
+    if wanted:
+        return wanted
+    confirmed = [s for s in ordered if seeds[s] >= cap]
+    critical = [s for s in confirmed if row[s].verdict == CRITICAL]
+    if not critical:
+        earlier = [s for s in ordered if s < confirmed[0]] if confirmed else []
+        if earlier:
+            return {earlier[-1]: cap}
+    # Midpoints between confirmed neighbours (from the latest critical start on) that disagree.
+    latest = critical[-1] if critical else ordered[0]
+    region = [s for s in confirmed if s >= latest]
+    for a, b in zip(region, region[1:], strict=False):
+        if row[a].verdict != row[b].verdict:
+            middle = _middle(a, b, settings["resolution"])
+            if middle is not None and middle not in seeds:
+                wanted[middle] = cap
     return wanted
 
 
@@ -178,27 +243,37 @@ def run_adaptive(config: DictConfig | dict | Sequence[str] = (),
     folder = results_folder(plain)
     seeds = {s: settings["seeds_initial"]
              for s in _coarse(settings["first"], settings["last"], settings["step"])}
-    outcome_history = []
+    history: list[str] = []
     table = pd.DataFrame()
-    rounds = 0
-    todo = dict(seeds)
-    while todo and rounds < settings["max_rounds"]:
+    rounds, phase = 0, "locate"
+    while rounds < settings["max_rounds"]:
         rounds += 1
         _run_round(plain, seeds, settings["length"], quiet)
         table = _table(folder, settings, seeds, confidence)
-        todo = _refine(table, seeds, settings)
+        todo = _locate(table, seeds, settings) if phase == "locate" else {}
+        if not todo:
+            phase = "confirm"
+            todo = _confirm(table, seeds, settings)
         counts = ", ".join(f"{s}:{seeds[s]}" for s in sorted(seeds))
-        outcome_history.append(f"round {rounds}: starts:seeds {counts}; next {todo or 'none'}")
+        history.append(f"round {rounds}: starts:seeds {counts}; next ({phase}) "
+                       f"{todo or 'none'}")
         if not quiet:
-            print(outcome_history[-1], flush=True)
+            print(history[-1], flush=True)
+        if not todo:
+            break
         seeds.update(todo)
+    else:
+        history.append(f"stopped after design.max_rounds={settings['max_rounds']} rounds; "
+                       "the boundary may not be settled")
+        if not quiet:
+            print(history[-1], flush=True)
     critical_until, safe_from = boundaries(table)
     _write(folder, table, plain)
     epochs = settings["epochs"]
     branch = sum((epochs - s) * n for s, n in seeds.items() if s in set(table.start))
     return AdaptiveOutcome(settings["length"], settings["tolerance"], critical_until, safe_from,
                            table, {int(s): int(n) for s, n in seeds.items()}, rounds, branch,
-                           outcome_history)
+                           history)
 
 
 def _write(folder, table: pd.DataFrame, plain: dict[str, Any]) -> None:

@@ -25,7 +25,10 @@ def row_notes(row) -> list[str]:
     verdict = getattr(row, "verdict", None)
     if verdict == "undetermined":
         more = getattr(row, "more_seeds", math.nan)
-        if row.seeds < 2:
+        if not bool(getattr(row, "confirmed", True)):
+            notes.append(f"not confirmed: {row.seeds} seeds, verdicts only at the cap "
+                         "(before the boundary, so not needed)")
+        elif row.seeds < 2:
             notes.append("one seed cannot decide")
         elif not (isinstance(more, float) and math.isnan(more)):
             notes.append(f"needs {describe_more_seeds(more)}")

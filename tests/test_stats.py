@@ -296,6 +296,21 @@ def test_verdicts_follow_holm_and_direction():
     assert math.isnan(table.loc[table.start == 20, "p_value"].iloc[0])
 
 
+def test_family_size_pads_holm_with_unmeasured_windows():
+    # A design that measured 4 of 12 candidate starts: Holm over 12 hypotheses, the 8
+    # unmeasured ones entering with p = 1. Reference: multipletests(method="holm") on the
+    # padded vector.
+    damages = {k: v for k, v in _damages().items() if len(v) > 1}
+    table = add_verdicts(_table(damages), damages, 0.5, 0.95, family_size=12)
+    p = [stats.ttest_1samp(v, 0.5).pvalue for v in damages.values()] + [1.0] * 8
+    reject, adjusted, _, _ = multipletests(p, alpha=0.05, method="holm")
+    assert list(table.p_holm) == pytest.approx(list(adjusted[:4]))
+    assert list(table.verdict != "undetermined") == list(reject[:4])
+    # Padding can only make the verdicts more cautious than the unpadded family's.
+    unpadded = add_verdicts(_table(damages), damages, 0.5, 0.95)
+    assert ((table.verdict == "undetermined") | (table.verdict == unpadded.verdict)).all()
+
+
 def test_families_are_separate_per_length():
     damages = {(0, 3): np.array([1.0, 1.3, 0.8]), (0, 6): np.array([1.0, 1.3, 0.8]),
                (4, 6): np.array([0.9, 1.2, 1.1])}

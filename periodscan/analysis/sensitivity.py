@@ -46,7 +46,8 @@ def resolution(runs: pd.DataFrame) -> float:
 def sensitivity_table(runs: pd.DataFrame, schedule_epochs: int, confidence: float = 0.95,
                       min_recovery: int | None = None, *, tolerance: float | None = None,
                       family: str = "length", bootstrap_min: int = BOOTSTRAP_MIN_SEEDS,
-                      mcnemar: pd.DataFrame | None = None) -> pd.DataFrame:
+                      mcnemar: pd.DataFrame | None = None,
+                      family_size: int | None = None) -> pd.DataFrame:
     """Aggregate per (start, length): seeds, baseline, mean damage and its interval.
 
     ``short_recovery`` flags windows followed by fewer than ``min_recovery`` clean epochs
@@ -56,7 +57,8 @@ def sensitivity_table(runs: pd.DataFrame, schedule_epochs: int, confidence: floa
     The interval is Student-t below ``bootstrap_min`` seeds and BCa bootstrap from there on
     (column ``interval`` names it, ``seeds`` says how many seeds it rests on). With a
     ``tolerance`` the windows are labelled critical / safe / undetermined with Holm's correction
-    over each ``family`` (see :mod:`periodscan.analysis.verdicts`). ``mcnemar`` is the output of
+    over each ``family`` (see :mod:`periodscan.analysis.verdicts`), padded to ``family_size``
+    hypotheses when the design measured only some of the candidate starts. ``mcnemar`` is the output of
     :func:`periodscan.analysis.mcnemar.mcnemar_frame`; its per-window summary is joined in.
     """
     if min_recovery is None:
@@ -102,7 +104,8 @@ def sensitivity_table(runs: pd.DataFrame, schedule_epochs: int, confidence: floa
     if len(table):
         table = table.sort_values(["length", "start"]).reset_index(drop=True)
     if tolerance is not None:
-        table = add_verdicts(table, damages, tolerance, confidence, family, sd_floor=floor)
+        table = add_verdicts(table, damages, tolerance, confidence, family, sd_floor=floor,
+                             family_size=family_size)
     if mcnemar is not None and len(table):
         summary = summarize_mcnemar(mcnemar, 1.0 - confidence)
         table = table.merge(summary, on=["start", "length"], how="left")

@@ -37,11 +37,14 @@ VERDICT_COLUMNS = ["tolerance", "p_value", "p_holm", "holm_low", "holm_high", "v
 
 def add_verdicts(table: pd.DataFrame, damages: dict[tuple[int, int], np.ndarray],
                  tolerance: float, confidence: float = 0.95, family: str = "length",
-                 sd_floor: float = 0.0) -> pd.DataFrame:
+                 sd_floor: float = 0.0, family_size: int | None = None) -> pd.DataFrame:
     """Return ``table`` with :data:`VERDICT_COLUMNS` added.
 
     ``damages`` maps (start, length) to the per-seed damages of that window; ``family`` is
     ``"length"`` (Holm over the windows of each length) or ``"all"`` (one family).
+    ``family_size`` counts windows that could have been measured but were not (a design that
+    chose which starts to run): each family is padded to that size with p-values of 1, so the
+    correction is never milder than the full grid's would be.
     """
     if family not in ("length", "all"):
         raise ValueError(f"family must be 'length' or 'all', got {family!r}")
@@ -56,18 +59,20 @@ def add_verdicts(table: pd.DataFrame, damages: dict[tuple[int, int], np.ndarray]
     keys = [None] * len(table) if family == "all" else list(table.length)
     for key in dict.fromkeys(keys):
         rows = [i for i, k in zip(table.index, keys, strict=True) if k == key]
-        _decide_family(table, rows, damages, tolerance, alpha, sd_floor)
+        _decide_family(table, rows, damages, tolerance, alpha, sd_floor, family_size)
     return table
 
 
 def _decide_family(table: pd.DataFrame, rows: list, damages, tolerance: float, alpha: float,
-                   sd_floor: float) -> None:
+                   sd_floor: float, family_size: int | None = None) -> None:
     tests = [t_test_vs(damages.get((int(table.at[i, "start"]), int(table.at[i, "length"])), []),
                        tolerance, sd_floor=sd_floor) for i in rows]
     pvalues = np.array([t.pvalue for t in tests])
-    adjusted = holm(pvalues)
-    levels = holm_levels(pvalues, alpha)
-    m = int(np.isfinite(pvalues).sum())
+    padding = max(0, (family_size or 0) - len(pvalues))
+    padded = np.concatenate([pvalues, np.ones(padding)])
+    adjusted = holm(padded)[:len(pvalues)]
+    levels = holm_levels(padded, alpha)[:len(pvalues)]
+    m = int(np.isfinite(padded).sum())
     sds = [t.sd for t in tests if t.n >= 2 and np.isfinite(t.sd)]
     ns = [t.n for t in tests if t.n >= 2 and np.isfinite(t.sd)]
     pooled = _pooled_sd(sds, ns)
