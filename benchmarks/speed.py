@@ -2,14 +2,18 @@
 
 Runs one sweep three ways on this machine, in one process session, and checks they agree:
 
-  (a) every run trained from scratch, one after another, in this process;
+  (a) every run trained from scratch, one after another, in one child process;
   (b) a Hydra multirun over the runs with the joblib launcher, one run per job, as many jobs
       at once as periodscan has workers (benchmarks/hydra_one_run.py);
   (c) ``periodscan.run_sweep`` with the local executor.
 
+Each way runs ``--repeats`` times, the order reversed every other time, and the median wall time
+is reported with its range: this machine is shared and a single timing can be off by a third.
 Prints epochs trained, wall time, peak resident memory (this process and its children, sampled)
 and the ratios (a)/(c), (b)/(c), the ideal ratio (epochs without sharing / epochs with sharing,
-times workers for (a)) and the efficiency (achieved / ideal). Also times one epoch of
+times workers for (a)) and the efficiency (achieved / ideal). With several workers, (a) also runs
+split over that many processes: the speed-up the machine itself gives independent runs, against
+which the parallel efficiency of (c) is also stated. Also times one epoch of
 periodscan's loop against a minimal hand-written PyTorch loop over the same tensors.
 
     python benchmarks/speed.py                 # both sweeps of the speed issue, 1 and 2 workers
@@ -21,6 +25,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import multiprocessing
 import os
 import statistics
 import subprocess
@@ -28,6 +33,7 @@ import sys
 import tempfile
 import threading
 import time
+from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 import psutil
@@ -80,13 +86,26 @@ class PeakMemory:
         self._thread.join()
 
 
-def way_scratch(plain: dict) -> dict[str, float]:
+def _scratch_runs(plain: dict, share: int, processes: int) -> dict[str, float]:
     training = {k: plain[k] for k in TRAINING_KEYS}
     accs = {}
-    for run in plan_runs(plain):
+    for run in plan_runs(plain)[share::processes]:
         _, _, records = train_from_scratch(training, run, threads=1)
         accs[run.run_id] = records[-1].test_acc
     return accs
+
+
+def way_scratch(plain: dict, processes: int = 1) -> dict[str, float]:
+    """The runs one after another in fresh child processes (split evenly over ``processes``).
+
+    Like (b) and (c), training happens outside this process, which only samples memory. With
+    more than one process this measures what the machine itself gives for independent work on
+    several cores: the yardstick for the parallel efficiency of (c).
+    """
+    context = multiprocessing.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=processes, mp_context=context) as pool:
+        parts = [pool.submit(_scratch_runs, plain, i, processes) for i in range(processes)]
+        return {k: v for part in parts for k, v in part.result().items()}
 
 
 def way_hydra(overrides: list[str], workers: int, n_runs: int) -> dict[str, float]:
@@ -151,19 +170,26 @@ def loop_overhead(plain: dict, repeats: int = 9) -> tuple[float, float]:
     return statistics.median(timings["ours"]), statistics.median(timings["minimal"])
 
 
+def _spread(values: list[float]) -> str:
+    return f"{min(values):.0f}-{max(values):.0f}" if len(values) > 1 else "-"
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--sweeps", nargs="+", default=list(SWEEPS), choices=list(SWEEPS))
     parser.add_argument("--workers", nargs="+", type=int, default=[1, 2])
     parser.add_argument("--quick", action="store_true",
                         help="1,000 training examples instead of 4,000 (same epoch arithmetic)")
+    parser.add_argument("--repeats", type=int, default=2,
+                        help="times each way runs, order reversed every other time; medians "
+                             "are reported (default 2)")
     parser.add_argument("--out", default=str(HERE / "results" / "speed.txt"))
     args = parser.parse_args()
     extra = ["data.n_train=1000"] if args.quick else []
 
     lines = [f"# periodscan speed benchmark  ({time.strftime('%Y-%m-%d %H:%M')}, "
              f"{os.cpu_count()} cores, torch {torch.__version__}, 1 torch thread per worker"
-             f"{', --quick' if args.quick else ''})", ""]
+             f"{', --quick' if args.quick else ''}, {args.repeats} repeat(s), medians)", ""]
 
     def emit(text: str = "") -> None:
         print(text, flush=True)
@@ -177,22 +203,63 @@ def main() -> None:
         unshared, shared = tree.epochs_unshared, tree.epochs_shared
         emit(f"## sweep {name}: {len(runs)} runs, {unshared} epochs from scratch, "
              f"{shared} in the tree (ideal sharing ratio {unshared / shared:.2f})")
-        acc_a, t_a, m_a = timed(way_scratch, plain)
-        emit(f"{'way':<34}{'workers':>8}{'epochs':>8}{'wall s':>9}{'peak MiB':>10}"
-             f"{'(a)/(c)':>9}{'(b)/(c)':>9}{'ideal':>7}{'effic.':>8}  same metrics")
+        # Every way once per repeat; the order is reversed on odd repeats so a slow spell of
+        # this shared machine does not always land on the same way. Medians are reported.
+        ways = [("a", 1)] + [(w, n) for n in args.workers
+                             for w in (("a", "b", "c") if n > 1 else ("b", "c"))]
+        walls: dict[tuple[str, int], list[float]] = {k: [] for k in ways}
+        peaks: dict[tuple[str, int], int] = dict.fromkeys(ways, 0)
+        metrics: dict[tuple[str, int], dict[str, float]] = {}
+        for rep in range(args.repeats):
+            for way, workers in (ways if rep % 2 == 0 else ways[::-1]):
+                if way == "a":
+                    result, seconds, peak = timed(way_scratch, plain, workers)
+                elif way == "b":
+                    result, seconds, peak = timed(way_hydra, overrides, workers, len(runs))
+                else:
+                    result, seconds, peak = timed(way_periodscan, overrides, workers)
+                print(f"   repeat {rep + 1}: ({way}) {workers} worker(s) {seconds:.1f} s",
+                      flush=True)
+                walls[(way, workers)].append(seconds)
+                peaks[(way, workers)] = max(peaks[(way, workers)], peak)
+                metrics.setdefault((way, workers), result)
+                if metrics[(way, workers)] != result:
+                    metrics[(way, workers)] = {}  # not reproducible between repeats
+        reference = metrics[("a", 1)]
+        t_a = statistics.median(walls[("a", 1)])
+
+        emit(f"{'way':<34}{'workers':>8}{'epochs':>8}{'wall s':>9}{'range':>9}{'peak MiB':>10}"
+             f"{'(a)/(c)':>9}{'(b)/(c)':>9}{'ideal':>7}{'effic.':>8}{'machine':>9}"
+             "  same metrics")
         emit(f"{'(a) from scratch, one by one':<34}{1:>8}{unshared:>8}{t_a:>9.1f}"
-             f"{m_a / 2**20:>10.0f}")
+             f"{_spread(walls[('a', 1)]):>9}{peaks[('a', 1)] / 2**20:>10.0f}")
         for workers in args.workers:
-            acc_b, t_b, m_b = timed(way_hydra, overrides, workers, len(runs))
-            acc_c, t_c, m_c = timed(way_periodscan, overrides, workers)
+            # What the machine gives independent runs on `workers` cores, from (a) itself.
+            scaling = 1.0
+            if workers > 1:
+                t_an = statistics.median(walls[("a", workers)])
+                scaling = t_a / t_an
+                same_a = bool(reference) and metrics[("a", workers)] == reference
+                emit(f"{'(a) from scratch, split':<34}{workers:>8}{unshared:>8}{t_an:>9.1f}"
+                     f"{_spread(walls[('a', workers)]):>9}"
+                     f"{peaks[('a', workers)] / 2**20:>10.0f}{'':>18}{'':>7}{'':>8}"
+                     f"{scaling:>9.2f}  {same_a}")
+            t_b = statistics.median(walls[("b", workers)])
+            t_c = statistics.median(walls[("c", workers)])
             ideal = unshared / shared * workers
-            same_b = acc_b == acc_a
-            same_c = acc_c == acc_a
+            same_b = bool(reference) and metrics[("b", workers)] == reference
+            same_c = bool(reference) and metrics[("c", workers)] == reference
             emit(f"{'(b) Hydra multirun + joblib':<34}{workers:>8}{unshared:>8}{t_b:>9.1f}"
-                 f"{m_b / 2**20:>10.0f}{'':>18}{'':>7}{'':>8}  {same_b}")
+                 f"{_spread(walls[('b', workers)]):>9}{peaks[('b', workers)] / 2**20:>10.0f}"
+                 f"{'':>18}{'':>7}{'':>8}  {same_b}")
             emit(f"{'(c) periodscan sweep':<34}{workers:>8}{shared:>8}{t_c:>9.1f}"
-                 f"{m_c / 2**20:>10.0f}{t_a / t_c:>9.2f}{t_b / t_c:>9.2f}{ideal:>7.2f}"
-                 f"{t_a / t_c / ideal:>8.2f}  {same_c}")
+                 f"{_spread(walls[('c', workers)]):>9}{peaks[('c', workers)] / 2**20:>10.0f}"
+                 f"{t_a / t_c:>9.2f}{t_b / t_c:>9.2f}{ideal:>7.2f}{t_a / t_c / ideal:>8.2f}"
+                 f"{t_a / t_c / (ideal / workers * scaling):>9.2f}  {same_c}")
+        emit("ideal = epochs from scratch / epochs in the tree x workers; effic. = ((a)/(c)) / "
+             "ideal; machine (on (a) split rows) = (a) one by one / (a) split, the speed-up this "
+             "machine gives independent runs; machine (on (c) rows) = effic. with the ideal "
+             "taken as sharing ratio x that speed-up")
         emit()
 
     ours, minimal = loop_overhead(to_plain(compose_config(extra)))
