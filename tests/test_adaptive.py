@@ -5,8 +5,14 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 
-from periodscan.adaptive import (_coarse, _confirm, _locate, boundaries, grid_branch_epochs,
-                                 run_adaptive)
+from periodscan.adaptive import (
+    _coarse,
+    _confirm,
+    _locate,
+    boundaries,
+    grid_branch_epochs,
+    run_adaptive,
+)
 from periodscan.errors import ConfigError
 from periodscan.sweep import run_sweep
 

@@ -58,8 +58,9 @@ def sensitivity_table(runs: pd.DataFrame, schedule_epochs: int, confidence: floa
     (column ``interval`` names it, ``seeds`` says how many seeds it rests on). With a
     ``tolerance`` the windows are labelled critical / safe / undetermined with Holm's correction
     over each ``family`` (see :mod:`periodscan.analysis.verdicts`), padded to ``family_size``
-    hypotheses when the design measured only some of the candidate starts. ``mcnemar`` is the output of
-    :func:`periodscan.analysis.mcnemar.mcnemar_frame`; its per-window summary is joined in.
+    hypotheses when the design measured only some of the candidate starts. ``mcnemar`` is the
+    output of :func:`periodscan.analysis.mcnemar.mcnemar_frame`; its per-window summary is
+    joined in.
     """
     if min_recovery is None:
         min_recovery = math.ceil(schedule_epochs / 10)
