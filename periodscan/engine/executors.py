@@ -1,7 +1,9 @@
 """Where segments run: in this process, in local worker processes (joblib's loky), or on Dask.
 
 All three share one small interface: ``submit(job) -> future``, ``wait_first(futures)``,
-``slots`` (how many segments to keep in flight), ``isolate_retries`` and ``close(abort)``. The
+``slots`` (how many segments run at once), ``in_flight`` (how many to keep submitted: one queued
+segment per worker beyond ``slots``, so a worker never idles while this process writes the
+previous result's checkpoint and ledger rows), ``isolate_retries`` and ``close(abort)``. The
 runner owns scheduling and the ledger; executors only move a pure function and its bytes to a
 worker and back.
 
@@ -60,6 +62,7 @@ class SerialExecutor:
     """Runs each segment in the calling process as soon as it is submitted."""
 
     slots = 1
+    in_flight = 1
     isolate_retries = False
 
     def submit(self, job: SegmentJob) -> cf.Future:
@@ -87,6 +90,7 @@ class LocalExecutor:
 
     def __init__(self, workers: int | None = None, threads_per_worker: int = 1):
         self.slots = workers or os.cpu_count() or 1
+        self.in_flight = 2 * self.slots
         self._env = {k: str(threads_per_worker) for k in ("OMP_NUM_THREADS", "MKL_NUM_THREADS")}
         self._pool = self._get_pool()
 
@@ -117,7 +121,7 @@ class LocalExecutor:
 class DaskExecutor:
     """The same segments on a Dask cluster; each job carries its parent checkpoint as bytes.
 
-    With an ``address`` it connects to a running scheduler and keeps one segment in flight per
+    With an ``address`` it connects to a running scheduler and keeps two segments in flight per
     worker that is connected at the moment (at least one, so a batch-queue cluster whose jobs
     are still queued simply waits). With no ``address`` it starts a ``LocalCluster`` of
     ``workers`` single-threaded processes and closes it at the end.
@@ -153,6 +157,10 @@ class DaskExecutor:
         if self._fixed_slots is not None:
             return self._fixed_slots
         return max(len(self._client.nthreads()), 1)
+
+    @property
+    def in_flight(self) -> int:
+        return 2 * self.slots
 
     def submit(self, job: SegmentJob) -> Any:
         return self._client.submit(run_segment_exclusive, job, pure=False)

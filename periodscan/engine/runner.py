@@ -1,7 +1,8 @@
 """Run a planned tree: schedule ready segments on an executor, record every result.
 
 A segment is ready when its parent's checkpoint exists. Ready segments go out longest-chain
-first, at most ``executor.slots`` at a time. Each finished segment is recorded in one ledger
+first, at most ``executor.in_flight`` at a time (one queued behind each busy worker, so workers
+never wait on this process's bookkeeping). Each finished segment is recorded in one ledger
 transaction, after its checkpoint file has been written and renamed into place, so a rerun of
 a killed sweep skips every run already done and restarts from the deepest verified checkpoint.
 A checkpoint on disk without its ledger row (killed in between) is simply trained again; a
@@ -133,7 +134,7 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
             retried = [s for s in ready if retries.get(s)]
             if retried:
                 return [] if running else retried[:1]
-        return ready[: max(executor.slots - len(running), 0)]
+        return ready[: max(executor.in_flight - len(running), 0)]
 
     try:
         while waiting or running:
