@@ -18,9 +18,9 @@ from periodscan.errors import ConfigError
 def test_default_is_the_demo():
     plain = to_plain(compose_config())
     runs = plan_runs(plain)
-    # 9 starts (0, 5, ..., 40) x one 15-epoch length + 1 baseline, for 5 seeds; the last window
-    # ends at epoch 55, leaving 5 clean epochs before the end.
-    assert len(runs) == 5 * 10
+    # 5 starts (0, 10, ..., 40) x one 15-epoch length + 1 baseline, for 10 seeds; the last
+    # window ends at epoch 55, leaving 5 clean epochs before the end.
+    assert len(runs) == 10 * 6
     assert {r.end for r in runs} == {60}
     assert plain["data"]["_target_"].endswith("load_mnist1d")
     assert plain["deficit"]["_target_"].endswith("Blur")
