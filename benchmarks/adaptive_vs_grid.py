@@ -34,6 +34,13 @@ CONFIGS = {
     # The same runs asked a stricter question (damage above 1 point); reuses the demo's runs.
     "demo-tol1": dict(overrides=[], length=15, epochs=60, starts=list(range(0, 41, 5)),
                       initial_step=20, tolerance=1.0, folder="demo"),
+    # The same two at a 2-epoch resolution: a grid of 21 (18) starts, where bisection should pay.
+    # They reuse the 5-epoch runs above wherever the starts coincide.
+    "demo-fine": dict(overrides=[], length=15, epochs=60, starts=list(range(0, 41, 2)),
+                      initial_step=20, tolerance=0.5, folder="demo", resolution=2),
+    "noise40-fine": dict(overrides=["deficit=label_noise", "deficit.rate=0.4"], length=15,
+                         epochs=60, starts=list(range(0, 35, 2)), initial_step=20,
+                         tolerance=0.5, folder="noise40", resolution=2),
     # scikit-learn's digits, MLP, blur sigma 2 for 10 epochs of 40 (validation study preset).
     "digits": dict(overrides=["experiment=validation_digits_blur"], length=10, epochs=40,
                    starts=list(range(0, 26, 5)), initial_step=10, tolerance=0.5,
@@ -50,7 +57,8 @@ def compare(name: str, spec: dict, results_dir: str, seeds: int) -> list[str]:
     grid_seconds = time.perf_counter() - started
     grid_edges = boundaries(grid.table)
     adaptive = run_adaptive([*common, "design=adaptive", f"design.length={spec['length']}",
-                             "design.resolution=5", f"design.initial_step={spec['initial_step']}",
+                             f"design.resolution={spec.get('resolution', 5)}",
+                             f"design.initial_step={spec['initial_step']}",
                              "design.first_start=0", f"design.last_start={spec['starts'][-1]}",
                              "design.seeds_initial=3", f"design.seeds_max={seeds}"],
                             quiet=True)
@@ -63,7 +71,8 @@ def compare(name: str, spec: dict, results_dir: str, seeds: int) -> list[str]:
     same = (adaptive.critical_until, adaptive.safe_from) == grid_edges
     return [
         f"## {name}: {spec['length']}-epoch deficit, tolerance {spec['tolerance']} points, "
-        f"starts {spec['starts'][0]}..{spec['starts'][-1]} every 5 epochs",
+        f"starts {spec['starts'][0]}..{spec['starts'][-1]} every {spec.get('resolution', 5)} "
+        "epochs",
         f"grid      : {len(spec['starts'])} starts x {seeds} seeds, {grid_epochs} branch epochs "
         f"({grid_seconds:.0f} s wall); verdicts {verdicts}",
         f"            latest critical start {grid_edges[0]}, safe from {grid_edges[1]}",
@@ -82,7 +91,8 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--results-dir", default=None,
                         help="keep the sweeps here (default: a temporary folder)")
-    parser.add_argument("--only", choices=list(CONFIGS), nargs="+", default=list(CONFIGS))
+    parser.add_argument("--only", choices=list(CONFIGS), nargs="+",
+                        default=["demo", "noise40", "demo-tol1", "digits"])
     parser.add_argument("--seeds", type=int, default=10,
                         help="seeds of the grid, and the adaptive design's seed cap (default 10)")
     parser.add_argument("--out", default=str(HERE / "results" / "adaptive_vs_grid.txt"))
