@@ -7,7 +7,7 @@ import shlex
 
 import numpy as np
 
-from periodscan.commands.sweep import _groups_help
+from periodscan.commands.sweep import _groups_help, add_config_arguments, command_line
 
 EPILOG = """\
 the rule: the trace of the Fisher information of the weights (monitor=fisher) is averaged over
@@ -34,13 +34,9 @@ def register(verbs) -> None:
         description="Train only the clean baseline trunks with the Fisher monitor and predict "
                     "where the critical window lies, in a fraction of the sweep's time.",
         epilog=EPILOG + _groups_help(), formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("overrides", nargs="*", metavar="KEY=VALUE",
-                        help="Hydra overrides, as for `periodscan sweep`")
+    add_config_arguments(parser, "Hydra overrides, as for `periodscan sweep`")
     parser.add_argument("--seeds", type=int, metavar="N",
                         help="train only the first N seeds of the config (default: all)")
-    parser.add_argument("-q", "--quiet", action="store_true", help="no progress bar (for logs)")
-    parser.add_argument("--config-dir", metavar="DIR",
-                        help="folder of your own config groups, searched before the built-ins")
     parser.set_defaults(func=run)
 
 
@@ -49,9 +45,8 @@ def run(args: argparse.Namespace) -> int:
     from periodscan.fisher.forecast import forecast
 
     cfg = compose_config(args.overrides, args.config_dir)
-    command = shlex.join(["periodscan", "forecast", *args.overrides]
-                         + (["--seeds", str(args.seeds)] if args.seeds else [])
-                         + (["--config-dir", args.config_dir] if args.config_dir else []))
+    command = command_line("forecast", args,
+                           *(["--seeds", str(args.seeds)] if args.seeds else []))
     outcome = forecast(cfg, seeds=args.seeds, quiet=args.quiet, command=command)
     print(describe(outcome, args.overrides))
     return 0

@@ -36,20 +36,30 @@ def _groups_help() -> str:
     return "\n".join(lines)
 
 
+def add_config_arguments(parser: argparse.ArgumentParser, overrides_help: str) -> None:
+    """The options every command that composes a config shares: overrides, -q, --config-dir."""
+    parser.add_argument("overrides", nargs="*", metavar="KEY=VALUE", help=overrides_help)
+    parser.add_argument("-q", "--quiet", action="store_true", help="no progress bar (for logs)")
+    parser.add_argument("--config-dir", metavar="DIR",
+                        help="folder of your own config groups, searched before the built-ins")
+
+
+def command_line(verb: str, args: argparse.Namespace, *extra: str) -> str:
+    """The shell command that reproduces this invocation (recorded with the sweep)."""
+    return shlex.join(["periodscan", verb, *args.overrides, *extra]
+                      + (["--config-dir", args.config_dir] if args.config_dir else []))
+
+
 def register(verbs) -> None:
     parser = verbs.add_parser(
         "sweep", help="run or resume a deficit-window sweep",
         description="Run or resume a sweep. Rerunning the same command skips finished runs and "
                     "continues from the last checkpoints.",
         epilog=_groups_help(), formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("overrides", nargs="*", metavar="KEY=VALUE",
-                        help="Hydra overrides: config group options and values")
+    add_config_arguments(parser, "Hydra overrides: config group options and values")
     parser.add_argument("--dry-run", action="store_true",
                         help="print the run tree, epochs with and without sharing and an "
                              "estimated time; train nothing")
-    parser.add_argument("-q", "--quiet", action="store_true", help="no progress bar (for logs)")
-    parser.add_argument("--config-dir", metavar="DIR",
-                        help="folder of your own config groups, searched before the built-ins")
     parser.set_defaults(func=run)
 
 
@@ -64,8 +74,7 @@ def run(args: argparse.Namespace) -> int:
     if args.dry_run:
         print(dry_run(cfg))
         return 0
-    command = shlex.join(["periodscan", "sweep", *args.overrides]
-                         + (["--config-dir", args.config_dir] if args.config_dir else []))
+    command = command_line("sweep", args)
     outcome = run_sweep(cfg, quiet=args.quiet, command=command)
     print(format_table(outcome.table, removal=cfg.design.kind == "removal"))
     print(f"\ntrained {outcome.epochs_shared} epochs in the tree for runs that would take "
