@@ -94,6 +94,17 @@ class SweepView:
         return self.design.get("kind") == "removal"
 
     @property
+    def is_adaptive(self) -> bool:
+        return self.design.get("kind") == "adaptive"
+
+    @cached_property
+    def adaptive_seeds(self) -> dict[int, int] | None:
+        """Seeds per start of a finished adaptive design (None for other designs)."""
+        from periodscan.adaptive import SEEDS_META, stored_seeds
+
+        return stored_seeds(self.ledger.get_meta(SEEDS_META)) if self.is_adaptive else None
+
+    @property
     def tolerance(self) -> float:
         return float(self.config.get("tolerance", 0.5))
 
@@ -127,12 +138,30 @@ class SweepView:
         """Runs of the design in config.yaml (a ledger can also hold runs of earlier designs)."""
         if not self.config:
             return None
+        if self.is_adaptive:
+            return self._adaptive_run_ids()
         from periodscan.config import plan_runs
 
         try:
             return {r.run_id for r in plan_runs(self.config)}
         except Exception:  # noqa: BLE001 - an unreadable design: fall back to every run
             return None
+
+    def _adaptive_run_ids(self) -> set[str] | None:
+        """Runs the adaptive design used: its starts at their seed counts, baselines to the cap."""
+        from periodscan.adaptive import adaptive_settings
+
+        seeds = self.adaptive_seeds
+        if seeds is None:  # interrupted before it finished: every run in the folder
+            return None
+        runs = self._all_runs
+        cap = adaptive_settings(self.config)["seeds_max"]
+        length = int(self.design["length"])
+        used = [(r.is_baseline == 1 and r.seed < cap) or
+                (r.length == length and int(r.start_epoch) in seeds
+                 and r.seed < seeds[int(r.start_epoch)])
+                for r in runs.itertuples()]
+        return set(runs.run_id[used])
 
     @cached_property
     def runs(self) -> pd.DataFrame:
@@ -173,6 +202,11 @@ class SweepView:
         tolerance = self.tolerance if tolerance is None else tolerance
         confidence = self.confidence if confidence is None else confidence
         check_question(1, tolerance, confidence, None)
+        if self.is_adaptive and self.adaptive_seeds is not None:
+            from periodscan.adaptive import adaptive_settings, adaptive_table
+
+            return adaptive_table(self.runs, adaptive_settings(self.config),
+                                  self.adaptive_seeds, confidence, tolerance)
         return sensitivity_table(
             self.runs, self.schedule_epochs, confidence, tolerance=tolerance,
             family="all" if self.is_removal else "length",
@@ -192,7 +226,16 @@ class SweepView:
             length = int(table.length.min())
         return plan_from_table(table, length, self.schedule_epochs, production_epochs,
                                sweep=self.name, budget=self.design.get("budget", "fixed_total"),
-                               recovery_epochs=self.design.get("recovery_epochs"))
+                               recovery_epochs=self.design.get("recovery_epochs"),
+                               holm_family=self._adaptive_family())
+
+    def _adaptive_family(self) -> int | None:
+        """Candidate starts an adaptive design's Holm correction counted (None otherwise)."""
+        if not self.is_adaptive or self.adaptive_seeds is None:
+            return None
+        from periodscan.adaptive import candidate_starts
+
+        return len(candidate_starts(self.config))
 
     def status(self):
         """Progress of the sweep: runs and epochs done, failures, ETA (see periodscan.status)."""

@@ -48,6 +48,7 @@ class StartAnswer:
     diverged: int = 0
     failed: int = 0
     unfinished: int = 0
+    confirmed: bool = True  # False: an adaptive design screened it on its first seeds
 
 
 @dataclass
@@ -154,8 +155,13 @@ def choose_length(asked: int, measured: list[int]) -> int:
 
 def plan_from_table(table: pd.DataFrame, length: int, schedule_epochs: int,
                     production_epochs: int | None = None, *, sweep: str = "",
-                    budget: str = "fixed_total", recovery_epochs: int | None = None) -> PlanAnswer:
-    """Answer for a deficit of ``length`` epochs from a table made with a tolerance."""
+                    budget: str = "fixed_total", recovery_epochs: int | None = None,
+                    holm_family: int | None = None) -> PlanAnswer:
+    """Answer for a deficit of ``length`` epochs from a table made with a tolerance.
+
+    ``holm_family``: the number of candidate starts Holm's correction counted when it is more
+    than the starts in the table (an adaptive design pads it to its whole grid).
+    """
     if table.empty:
         raise SweepError(f"sweep {sweep!r} has no finished window runs yet; nothing to plan from")
     if "verdict" not in table:
@@ -175,6 +181,7 @@ def plan_from_table(table: pd.DataFrame, length: int, schedule_epochs: int,
         holm_high=float(r.holm_high), verdict=str(r.verdict), more_seeds=float(r.more_seeds),
         recovery_epochs=int(r.recovery_epochs), short_recovery=bool(r.short_recovery),
         diverged=int(r.diverged), failed=int(r.failed), unfinished=int(r.unfinished),
+        confirmed=bool(getattr(r, "confirmed", True)),
     ) for r in rows.itertuples()]
     safe = [s.start for s in starts if s.verdict == SAFE]
     critical = [s.start for s in starts if s.verdict == CRITICAL]
@@ -190,11 +197,12 @@ def plan_from_table(table: pd.DataFrame, length: int, schedule_epochs: int,
     answer = PlanAnswer(sweep, length, used, used == length, measured, tolerance, confidence,
                         schedule_epochs, production_epochs, starts, safe, critical, undetermined,
                         safe_from, best, bool(safe_rows))
-    answer.notes = _notes(answer, budget, recovery_epochs)
+    answer.notes = _notes(answer, budget, recovery_epochs, holm_family)
     return answer
 
 
-def _notes(a: PlanAnswer, budget: str, recovery_epochs: int | None) -> list[str]:
+def _notes(a: PlanAnswer, budget: str, recovery_epochs: int | None,
+           holm_family: int | None = None) -> list[str]:
     notes = []
     if not a.length_measured:
         last = a.starts[-1].start if a.starts else 0
@@ -225,15 +233,24 @@ def _notes(a: PlanAnswer, budget: str, recovery_epochs: int | None) -> list[str]
     diverged = sum(s.diverged for s in a.starts)
     if diverged:
         notes.append(f"{diverged} window run(s) diverged; their final accuracy counts as damage.")
-    open_rows = [s for s in a.starts if s.verdict not in (SAFE, CRITICAL)]
+    screened = [s.start for s in a.starts if not s.confirmed]
+    if screened:
+        notes.append(f"Adaptive design: start(s) {', '.join(map(str, screened))} were screened "
+                     "on their first seeds (their mean told the search which way to go) and "
+                     "are not confirmed; only starts measured at the seed cap get verdicts, so "
+                     "no data-dependent stopping enters a verdict. Starts between measured ones "
+                     "are assumed to follow the measured trend.")
+    open_rows = [s for s in a.starts if s.verdict not in (SAFE, CRITICAL) and s.confirmed]
     if open_rows:
         worst = max((s.more_seeds for s in open_rows if not math.isnan(s.more_seeds)),
                     default=math.nan)
         notes.append(f"{len(open_rows)} start(s) undetermined at this tolerance; settling all of "
                      f"them would likely take {describe_more_seeds(worst)}.")
-    notes.append("Verdicts: paired t test of mean damage against the tolerance, Holm-corrected "
-                 "over the starts of this length; safe = upper bound below tolerance, critical = "
-                 "lower bound above it. Only measured starts are judged; starts in between are "
-                 "not.")
+    family = ("over the starts of this length" if holm_family is None else
+              f"over all {holm_family} candidate starts of the adaptive grid (unmeasured ones "
+              "count with p = 1)")
+    notes.append(f"Verdicts: paired t test of mean damage against the tolerance, Holm-corrected "
+                 f"{family}; safe = upper bound below tolerance, critical = lower bound above "
+                 "it. Only measured starts are judged; starts in between are not.")
     notes.append(PROXY_CAVEAT)
     return notes

@@ -19,19 +19,26 @@ def _window(row, removal: bool) -> str:
     return f"[{row.start}, {row.start + row.length})"
 
 
+def _open_note(seeds: int, more_seeds: float, confirmed: bool) -> str:
+    """Why a start has no verdict: screened by the adaptive design, one seed, or too few."""
+    if not confirmed:
+        return (f"not confirmed: {seeds} seeds, screened by its mean (verdicts only at the "
+                "seed cap)")
+    if seeds < 2:
+        return "one seed cannot decide"
+    if isinstance(more_seeds, float) and math.isnan(more_seeds):
+        return ""
+    return f"needs {describe_more_seeds(more_seeds)}"
+
+
 def row_notes(row) -> list[str]:
     """Short remarks a reader must see beside a window's numbers."""
     notes = []
     verdict = getattr(row, "verdict", None)
     if verdict == "undetermined":
         more = getattr(row, "more_seeds", math.nan)
-        if not bool(getattr(row, "confirmed", True)):
-            notes.append(f"not confirmed: {row.seeds} seeds, verdicts only at the cap "
-                         "(before the boundary, so not needed)")
-        elif row.seeds < 2:
-            notes.append("one seed cannot decide")
-        elif not (isinstance(more, float) and math.isnan(more)):
-            notes.append(f"needs {describe_more_seeds(more)}")
+        notes += [n for n in [_open_note(row.seeds, more, bool(getattr(row, "confirmed", True)))]
+                  if n]
     elif verdict is None and pd.notna(row.damage_low) and row.damage_low > 0:
         notes.append("! damage")
     if row.short_recovery:
@@ -101,8 +108,7 @@ def format_plan(answer) -> str:
         damage = f"{s.damage:+7.2f}" if not math.isnan(s.damage) else f"{'-':>7}"
         notes = []
         if s.verdict not in (SAFE, CRITICAL):
-            notes.append("one seed cannot decide" if s.seeds < 2
-                         else f"needs {describe_more_seeds(s.more_seeds)}")
+            notes += [n for n in [_open_note(s.seeds, s.more_seeds, s.confirmed)] if n]
         if s.short_recovery:
             notes.append(f"only {s.recovery_epochs} clean epochs after")
         note = "; ".join(notes)

@@ -7,10 +7,9 @@ import pytest
 
 from periodscan.adaptive import (
     _coarse,
-    _confirm,
-    _locate,
     boundaries,
     grid_branch_epochs,
+    next_round,
     run_adaptive,
 )
 from periodscan.errors import ConfigError
@@ -30,43 +29,64 @@ def test_coarse_pass_includes_the_last_start():
     assert _coarse(0, 40, 8) == [0, 8, 16, 24, 32, 40]
 
 
-def test_locate_bisects_where_the_mean_crosses_the_tolerance():
+def test_first_the_latest_possibly_critical_start_and_the_last_start_go_to_the_cap():
     seeds = {0: 3, 8: 3, 16: 3, 24: 3}
-    table = _table(dict.fromkeys(seeds, "undetermined"), {0: 2.0, 8: 1.2, 16: 0.1, 24: 0.9})
-    # Crossings between 8|16 (above -> below) and 16|24 (below -> above): both midpoints.
-    assert _locate(table, seeds, SETTINGS) == {12: 3, 20: 3}
-    # At the resolution nothing is left to bisect.
-    seeds = {4: 3, 5: 3}
-    table = _table(dict.fromkeys(seeds, "undetermined"), {4: 2.0, 5: 0.0})
-    assert _locate(table, seeds, SETTINGS) == {}
+    table = _table(dict.fromkeys(seeds, "undetermined"), {0: 2.0, 8: 1.2, 16: 0.1, 24: 0.3})
+    # 8 is the latest start whose interim mean is above the tolerance; 24 anchors the safe edge.
+    assert next_round(table, seeds, SETTINGS) == {8: 7, 24: 7}
 
 
-def test_confirm_raises_the_deciding_starts_to_the_cap_first():
-    seeds = {0: 3, 8: 3, 12: 3, 16: 3, 24: 3}
-    table = _table(dict.fromkeys(seeds, "undetermined"),
-                   {0: 3.0, 8: 2.0, 12: 1.0, 16: 0.2, 24: 0.0})
-    # Last start above the tolerance is 12: it and everything after go to the cap; 0 and 8 not.
-    assert _confirm(table, seeds, SETTINGS) == {12: 7, 16: 7, 24: 7}
+def test_interim_mean_below_the_tolerance_screens_a_start_out_as_critical_candidate():
+    seeds = {0: 7, 8: 3, 16: 3, 24: 7}
+    table = _table({0: "critical", 8: "undetermined", 16: "undetermined", 24: "undetermined"},
+                   {0: 2.0, 8: 0.4, 16: 0.1, 24: 0.3})
+    # 8 and 16 are screened (mean <= 0.5); 24 is not safe at the cap: no safe stretch. The
+    # critical edge lies between 0 and 8: bisect at 4 with the interim seeds.
+    assert next_round(table, seeds, SETTINGS) == {4: 3}
 
 
-def test_confirm_walks_back_until_a_critical_start_then_bisects_disagreements():
-    seeds = {0: 3, 8: 3, 12: 7, 16: 7, 24: 7}
-    damage = {0: 3.0, 8: 2.0, 12: 1.0, 16: 0.2, 24: 0.0}
-    table = _table({0: "undetermined", 8: "undetermined", 12: "undetermined",
-                    16: "undetermined", 24: "safe"}, damage)
-    # 12 is not critical at the cap: the start before it is raised.
-    assert _confirm(table, seeds, SETTINGS) == {8: 7}
-    seeds[8] = 7
-    table = _table({0: "undetermined", 8: "critical", 12: "undetermined", 16: "undetermined",
-                    24: "safe"}, damage)
-    # 8 is critical: midpoints at the cap where confirmed neighbours disagree (8|12, 16|24).
-    assert _confirm(table, seeds, SETTINGS) == {10: 7, 20: 7}
+def test_critical_edge_at_the_resolution_caps_both_sides_then_stops():
+    seeds = {0: 7, 4: 7, 5: 3, 8: 3, 24: 7}
+    damage = {0: 2.0, 4: 1.5, 5: 0.3, 8: 0.4, 24: 0.3}
+    table = _table({0: "critical", 4: "critical", 5: "undetermined", 8: "undetermined",
+                    24: "undetermined"}, damage)
+    assert next_round(table, seeds, SETTINGS) == {5: 7}
+    seeds[5] = 7
+    table = _table({0: "critical", 4: "critical", 5: "undetermined", 8: "undetermined",
+                    24: "undetermined"}, damage)
+    assert next_round(table, seeds, SETTINGS) == {}
+    assert boundaries(table) == (4, None)
 
 
-def test_confirm_is_done_when_neighbours_are_at_the_resolution():
-    seeds = {0: 3, 4: 7, 5: 7}
-    table = _table({0: "undetermined", 4: "critical", 5: "safe"}, {0: 3.0, 4: 2.0, 5: 0.0})
-    assert _confirm(table, seeds, SETTINGS) == {}
+def test_a_later_start_above_the_tolerance_is_checked_before_the_edge_is_accepted():
+    # 0 is critical, but 16's interim mean is above the tolerance: it is raised to the cap.
+    # For the safe edge 16 blocks (not safe by its mean) and 24 is safe: bisect at 20.
+    seeds = {0: 7, 8: 3, 16: 3, 24: 7}
+    table = _table({0: "critical", 8: "undetermined", 16: "undetermined", 24: "safe"},
+                   {0: 2.0, 8: 0.2, 16: 0.9, 24: 0.0})
+    assert next_round(table, seeds, SETTINGS) == {16: 7, 20: 3}
+
+
+def test_safe_edge_caps_the_measured_starts_after_the_last_unsafe_one_then_bisects():
+    seeds = {0: 7, 1: 7, 4: 3, 16: 3, 24: 7}
+    table = _table({0: "critical", 1: "undetermined", 4: "undetermined", 16: "undetermined",
+                    24: "safe"}, {0: 2.0, 1: 0.8, 4: 0.5, 16: 0.1, 24: 0.0})
+    # Critical edge: 1 is capped undetermined and 4's interim mean (exactly the tolerance) is
+    # not above it, so 0 | 1 is settled. Safe edge: 4 blocks (its mean is not below the
+    # tolerance); 16 is after it and not capped yet.
+    assert next_round(table, seeds, SETTINGS) == {16: 7}
+    seeds[16] = 7
+    table = _table({0: "critical", 1: "undetermined", 4: "undetermined", 16: "safe",
+                    24: "safe"}, {0: 2.0, 1: 0.8, 4: 0.5, 16: 0.1, 24: 0.0})
+    assert next_round(table, seeds, SETTINGS) == {10: 3}
+
+
+def test_no_candidate_for_critical_and_an_unsafe_last_start_settle_at_once():
+    seeds = {0: 3, 8: 3, 16: 7}
+    table = _table({0: "undetermined", 8: "undetermined", 16: "undetermined"},
+                   {0: 0.2, 8: 0.1, 16: 0.3})
+    assert next_round(table, seeds, SETTINGS) == {}
+    assert boundaries(table) == (None, None)
 
 
 def test_boundaries():
@@ -124,3 +144,30 @@ def _segments(folder) -> int:
 
     with sqlite3.connect(folder / "ledger.sqlite") as con:
         return con.execute("select count(*) from segments where status = 'done'").fetchone()[0]
+
+
+def test_a_finished_adaptive_folder_reads_by_the_adaptive_rule(tmp_path):
+    # A grid at the cap in the same folder, then the adaptive design: load_sweep, plan and the
+    # table must describe the adaptive design's runs only (its starts at their seed counts),
+    # with verdicts at the cap and Holm over the whole candidate grid, as run_adaptive did.
+    from periodscan.api import load_sweep
+
+    common = ["experiment=tiny", "tolerance=0.5", f"results_dir={tmp_path}", "name=edge"]
+    run_sweep([*common, "design.starts=[0,1,2,3,4]", "seeds=3"], quiet=True)
+    outcome = run_adaptive([*common, "design=adaptive", "design.length=3",
+                            "design.initial_step=2", "design.first_start=0",
+                            "design.last_start=4", "design.seeds_initial=2",
+                            "design.seeds_max=3"], quiet=True)
+    with load_sweep(tmp_path / "edge") as view:
+        assert view.is_adaptive and view.adaptive_seeds == outcome.seeds_per_start
+        windows = view.runs[view.runs.is_baseline == 0]
+        assert windows.groupby("start_epoch").size().to_dict() == outcome.seeds_per_start
+        table = view.table()
+        pd.testing.assert_series_equal(table.verdict, outcome.table.verdict)
+        pd.testing.assert_series_equal(table.p_holm, outcome.table.p_holm)
+        answer = view.plan()
+    notes = " ".join(answer.notes)
+    assert "all 5 candidate starts of the adaptive grid" in notes
+    screened = [s for s, n in outcome.seeds_per_start.items() if n < 3]
+    assert ("Adaptive design" in notes) == bool(screened)
+    assert [s.start for s in answer.starts if not s.confirmed] == sorted(screened)

@@ -93,9 +93,9 @@ def _run_adaptive(cfg, args: argparse.Namespace) -> int:
     from periodscan.terminal import format_table
 
     if args.dry_run:
-        print("adaptive design: the first round is this sweep; later rounds add starts where "
-              "the damage crosses the tolerance and raise the starts that decide the boundary "
-              "to design.seeds_max seeds, reusing everything already trained\n")
+        print("adaptive design: the first round is this sweep; later rounds bisect toward "
+              "each edge of the critical window and raise the starts the edges stand on to "
+              "design.seeds_max seeds, reusing everything already trained\n")
         print(dry_run(coarse_config(cfg)))
         return 0
     outcome = run_adaptive(cfg, quiet=args.quiet)
