@@ -24,6 +24,7 @@ import time
 from collections.abc import Iterable
 from typing import Any
 
+from periodscan.engine.allocator import keep_freed_memory
 from periodscan.engine.segment import SegmentJob, SegmentResult, run_segment
 from periodscan.errors import ConfigError, SweepError
 
@@ -38,8 +39,10 @@ def run_segment_exclusive(job: SegmentJob) -> SegmentResult:
 
     Dropout draws from torch's per-process RNG, which training reseeds each epoch; two
     segments trained by two threads of one Dask worker would interleave their draws. The lock
-    keeps results exact even on workers started with more than one thread.
+    keeps results exact even on workers started with more than one thread. A Dask worker is a
+    process periodscan uses for training only, so its allocator keeps freed memory too.
     """
+    keep_freed_memory()
     with _ONE_AT_A_TIME:
         return run_segment(job)
 
@@ -48,8 +51,10 @@ def exit_with_parent(parent_pid: int, interval: float = 1.0) -> None:
     """Worker initializer: end this worker soon after the sweep process that owns it is gone.
 
     A SIGKILLed sweep cannot shut its pool down, and loky workers would otherwise keep
-    training a lost segment (and then idle for minutes) on cores the rerun needs.
+    training a lost segment (and then idle for minutes) on cores the rerun needs. It also sets
+    the worker's allocator to keep freed memory (periodscan.engine.allocator).
     """
+    keep_freed_memory()
     def watch() -> None:
         while os.getppid() == parent_pid:
             time.sleep(interval)
