@@ -13,7 +13,9 @@ Prints epochs trained, wall time, peak resident memory (this process and its chi
 and the ratios (a)/(c), (b)/(c), the ideal ratio (epochs without sharing / epochs with sharing,
 times workers for (a)) and the efficiency (achieved / ideal). With several workers, (a) also runs
 split over that many processes: the speed-up the machine itself gives independent runs, against
-which the parallel efficiency of (c) is also stated. Also times one epoch of
+which the parallel efficiency of (c) is also stated. With one worker, (a) and (c) also run at the
+same moment, one per core, so that the machine's drift hits both alike (``same_moment``). Also
+times one epoch of
 periodscan's loop against a minimal hand-written PyTorch loop over the same tensors.
 
     python benchmarks/speed.py                 # both sweeps of the speed issue, 1 and 2 workers
@@ -25,8 +27,10 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import multiprocessing
 import os
+import sqlite3
 import statistics
 import subprocess
 import sys
@@ -129,6 +133,64 @@ def way_periodscan(overrides: list[str], workers: int) -> dict[str, float]:
     return dict(zip(outcome.runs.run_id, outcome.runs.test_acc, strict=True))
 
 
+def _scratch_log(plain: dict, log: str) -> None:
+    """(a) in a child, one JSON line per run: end time, epoch seconds, seconds outside epochs."""
+    training = {k: plain[k] for k in TRAINING_KEYS}
+    for run in plan_runs(plain):
+        start = time.perf_counter()
+        _, _, records = train_from_scratch(training, run, threads=1)
+        inside = sum(r.seconds for r in records)
+        line = {"end": time.time(), "outside": time.perf_counter() - start - inside,
+                "epochs": [[bool(r.deficit_on), r.seconds] for r in records]}
+        with open(log, "a") as out:
+            out.write(json.dumps(line) + "\n")
+
+
+def same_moment(plain: dict, overrides: list[str]) -> dict[str, float]:
+    """(a) and (c) with one worker started together, one core each.
+
+    Run one after the other, the two ways meet different spells of a shared machine (identical
+    runs here vary by a third within minutes). Run at the same moment they meet the same ones.
+    (c) runs to the end; (a) is stopped then, and its cost is projected from the epochs it
+    trained meanwhile: its planned clean and deficit epochs times its mean seconds for each,
+    plus its mean time outside epochs per run. Both ways slow each other a little (shared
+    memory bandwidth), equally.
+    """
+    context = multiprocessing.get_context("spawn")
+    with tempfile.TemporaryDirectory() as tmp:
+        log = str(Path(tmp) / "scratch.jsonl")
+        child = context.Process(target=_scratch_log, args=(plain, log), daemon=True)
+        child.start()
+        start = time.perf_counter()
+        run_sweep([*overrides, "executor=local", "executor.workers=1", f"results_dir={tmp}",
+                   "name=bench"], quiet=True)
+        wall_c, end_c = time.perf_counter() - start, time.time()
+        child.terminate()
+        child.join()
+        with sqlite3.connect(Path(tmp) / "bench" / "ledger.sqlite") as con:
+            tree = con.execute("SELECT deficit_on, seconds FROM epochs").fetchall()
+        lines = [json.loads(t) for t in Path(log).read_text().splitlines()] if Path(
+            log).exists() else []
+    get_reusable_executor().shutdown(wait=True)
+    done = [line for line in lines if line["end"] <= end_c]
+    if not done:
+        return {}
+    scratch = [(flag, sec) for line in done for flag, sec in line["epochs"]]
+    mean = {flag: statistics.mean([sec for f, sec in scratch if f == flag] or [math.nan])
+            for flag in (False, True)}
+    planned = {False: 0, True: 0}
+    for run in plan_runs(plain):
+        for epoch in range(run.end):
+            planned[run.deficit_on(epoch)] += 1
+    projected_a = (planned[False] * mean[False] + planned[True] * mean[True]
+                   + len(plan_runs(plain)) * statistics.mean(line["outside"] for line in done))
+    tree_mean = {flag: statistics.mean([sec for f, sec in tree if bool(f) == flag] or [math.nan])
+                 for flag in (False, True)}
+    return {"a_clean": mean[False], "a_deficit": mean[True], "c_clean": tree_mean[False],
+            "c_deficit": tree_mean[True], "a_projected": projected_a, "c_wall": wall_c,
+            "a_runs_done": len(done)}
+
+
 def timed(fn, *args):
     with PeakMemory() as memory:
         start = time.perf_counter()
@@ -171,7 +233,9 @@ def loop_overhead(plain: dict, repeats: int = 9) -> tuple[float, float]:
 
 
 def _spread(values: list[float]) -> str:
-    return f"{min(values):.0f}-{max(values):.0f}" if len(values) > 1 else "-"
+    # Floor and ceiling, so that the range printed always contains the median printed.
+    return (f"{math.floor(min(values))}-{math.ceil(max(values))}" if len(values) > 1
+            else "-")
 
 
 def main() -> None:
@@ -184,6 +248,8 @@ def main() -> None:
                         help="times each way runs, order reversed every other time; medians "
                              "are reported (default 2)")
     parser.add_argument("--out", default=str(HERE / "results" / "speed.txt"))
+    parser.add_argument("--no-same-moment", dest="same_moment", action="store_false",
+                        help="skip the 1-worker (a)/(c) measurement with both started together")
     args = parser.parse_args()
     extra = ["data.n_train=1000"] if args.quick else []
 
@@ -260,6 +326,19 @@ def main() -> None:
              "ideal; machine (on (a) split rows) = (a) one by one / (a) split, the speed-up this "
              "machine gives independent runs; machine (on (c) rows) = effic. with the ideal "
              "taken as sharing ratio x that speed-up")
+        if args.same_moment and 1 in args.workers:
+            print("   same moment: (a) and (c) with 1 worker started together", flush=True)
+            both = same_moment(plain, overrides)
+            if both:
+                ratio = both["a_projected"] / both["c_wall"]
+                ideal = unshared / shared
+                emit(f"same moment, 1 worker, (a) and (c) started together on one core each: "
+                     f"per clean epoch (a) {1000 * both['a_clean']:.1f} ms, (c) "
+                     f"{1000 * both['c_clean']:.1f} ms; per deficit epoch (a) "
+                     f"{1000 * both['a_deficit']:.1f} ms, (c) {1000 * both['c_deficit']:.1f} ms;"
+                     f" (a) projected {both['a_projected']:.1f} s (from its "
+                     f"{both['a_runs_done']} runs done meanwhile), (c) {both['c_wall']:.1f} s: "
+                     f"(a)/(c) {ratio:.2f}, ideal {ideal:.2f}, effic. {ratio / ideal:.2f}")
         emit()
 
     ours, minimal = loop_overhead(to_plain(compose_config(extra)))
