@@ -28,10 +28,9 @@ So seeds are added only where the boundary is decided, and starts the screen set
 ``seeds_initial`` seeds and are reported undetermined ("not confirmed").
 
 The screen can mislead where the interim mean falls on the wrong side of the tolerance: a start
-that would be critical at the cap but had an unlucky first few seeds. For a start whose damage
-just passes the test at the cap that chance is Phi(-t * sqrt(seeds_initial / seeds_max)) under
-a normal model (t the critical value of the test at the cap); ``benchmarks/adaptive_vs_grid.py``
-measures it on real grids. The search also assumes the damage changes monotonically between the
+that would be critical at the cap but had an unlucky first few seeds. The closer a start's
+damage is to the tolerance, the likelier that is; ``benchmarks/adaptive_vs_grid.py`` counts how
+often it happens on real grids. The search also assumes the damage changes monotonically between the
 starts it measured: a critical stretch narrower than ``initial_step`` between two harmless
 coarse starts is missed. Choose ``initial_step`` below the narrowest stretch you care about.
 """
