@@ -29,10 +29,11 @@ So seeds are added only where the boundary is decided, and starts the screen set
 
 The screen can mislead where the interim mean falls on the wrong side of the tolerance: a start
 that would be critical at the cap but had an unlucky first few seeds. The closer a start's
-damage is to the tolerance, the likelier that is; ``benchmarks/adaptive_vs_grid.py`` counts how
-often it happens on real grids. The search also assumes the damage changes monotonically between the
-starts it measured: a critical stretch narrower than ``initial_step`` between two harmless
-coarse starts is missed. Choose ``initial_step`` below the narrowest stretch you care about.
+damage is to the tolerance, the likelier that is; ``benchmarks/adaptive_vs_grid.py`` counts
+how often it happens on real grids. The search also assumes the damage changes monotonically
+between the starts it measured: a critical stretch narrower than ``initial_step`` between two
+harmless coarse starts is missed. Choose ``initial_step`` below the narrowest stretch you care
+about.
 """
 
 from __future__ import annotations
@@ -149,6 +150,18 @@ def _run_round(base: dict[str, Any], seeds: dict[int, int], length: int, quiet: 
         run_sweep(config, quiet=quiet)
 
 
+def runs_used(runs: pd.DataFrame, settings: dict[str, Any],
+              seeds: dict[int, int]) -> pd.DataFrame:
+    """The runs the design used: baselines up to the seed cap, each start at its seed count."""
+    length, cap = settings["length"], settings["seeds_max"]
+    used = [(r.is_baseline == 1 and r.seed < cap) or
+            (r.length == length and int(r.start_epoch) in seeds
+             and r.seed < seeds[int(r.start_epoch)])
+            for r in runs.itertuples()]
+    return runs[pd.Series(used, index=runs.index, dtype=bool)
+                & (runs.end_epoch == settings["epochs"])]
+
+
 def adaptive_table(runs: pd.DataFrame, settings: dict[str, Any], seeds: dict[int, int],
                    confidence: float, tolerance: float | None = None) -> pd.DataFrame:
     """Sensitivity table of the measured starts: verdicts only for starts at the seed cap.
@@ -161,12 +174,7 @@ def adaptive_table(runs: pd.DataFrame, settings: dict[str, Any], seeds: dict[int
     """
     tolerance = settings["tolerance"] if tolerance is None else float(tolerance)
     cap = settings["seeds_max"]
-    mine = runs[((runs.is_baseline == 1) & (runs.seed < cap)) |
-                ((runs.length == settings["length"]) & runs.start_epoch.isin(list(seeds)))]
-    mine = mine[mine.end_epoch == settings["epochs"]]
-    keep = [bool(r.is_baseline == 1 or r.seed < seeds[int(r.start_epoch)])
-            for r in mine.itertuples()]
-    mine = mine[keep]
+    mine = runs_used(runs, settings, seeds)
     capped = {s for s, n in seeds.items() if n >= cap}
     is_capped = mine.start_epoch.isin(list(capped))
     family = len(_grid(settings["first"], settings["last"], settings["resolution"]))  # padded

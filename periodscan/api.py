@@ -149,19 +149,12 @@ class SweepView:
 
     def _adaptive_run_ids(self) -> set[str] | None:
         """Runs the adaptive design used: its starts at their seed counts, baselines to the cap."""
-        from periodscan.adaptive import adaptive_settings
+        from periodscan.adaptive import adaptive_settings, runs_used
 
-        seeds = self.adaptive_seeds
-        if seeds is None:  # interrupted before it finished: every run in the folder
+        if self.adaptive_seeds is None:  # interrupted before it finished: every run in the folder
             return None
-        runs = self._all_runs
-        cap = adaptive_settings(self.config)["seeds_max"]
-        length = int(self.design["length"])
-        used = [(r.is_baseline == 1 and r.seed < cap) or
-                (r.length == length and int(r.start_epoch) in seeds
-                 and r.seed < seeds[int(r.start_epoch)])
-                for r in runs.itertuples()]
-        return set(runs.run_id[used])
+        return set(runs_used(self._all_runs, adaptive_settings(self.config),
+                             self.adaptive_seeds).run_id)
 
     @cached_property
     def runs(self) -> pd.DataFrame:

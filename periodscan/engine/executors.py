@@ -51,16 +51,20 @@ def exit_with_parent(parent_pid: int, interval: float = 1.0) -> None:
     """Worker initializer: end this worker soon after the sweep process that owns it is gone.
 
     A SIGKILLed sweep cannot shut its pool down, and loky workers would otherwise keep
-    training a lost segment (and then idle for minutes) on cores the rerun needs. It also sets
-    the worker's allocator to keep freed memory (periodscan.engine.allocator).
+    training a lost segment (and then idle for minutes) on cores the rerun needs.
     """
-    keep_freed_memory()
     def watch() -> None:
         while os.getppid() == parent_pid:
             time.sleep(interval)
         os._exit(0)
 
     threading.Thread(target=watch, name="periodscan-exit-with-parent", daemon=True).start()
+
+
+def start_worker(parent_pid: int) -> None:
+    """Local worker initializer: keep freed memory (a training-only process), follow the parent."""
+    keep_freed_memory()
+    exit_with_parent(parent_pid)
 
 
 class SerialExecutor:
@@ -103,7 +107,7 @@ class LocalExecutor:
         from joblib.externals.loky import get_reusable_executor
 
         return get_reusable_executor(max_workers=self.slots, env=self._env, reuse=True,
-                                     timeout=IDLE_WORKER_TIMEOUT, initializer=exit_with_parent,
+                                     timeout=IDLE_WORKER_TIMEOUT, initializer=start_worker,
                                      initargs=(os.getpid(),))
 
     def submit(self, job: SegmentJob) -> cf.Future:
