@@ -12,11 +12,14 @@ from __future__ import annotations
 import hashlib
 import io
 import os
-import tempfile
+import secrets
 from pathlib import Path
 from typing import Any
 
 import torch
+
+#: Random temporary names tried before giving up (48 random bits each: a clash is a bug).
+TEMPORARY_ATTEMPTS = 100
 
 
 def to_bytes(model: torch.nn.Module, optimizer: torch.optim.Optimizer, epoch: int) -> bytes:
@@ -40,10 +43,14 @@ def sha256(blob: bytes) -> str:
 
 
 def write_atomic(path: str | os.PathLike, blob: bytes) -> None:
-    """Write to a temporary file in the same folder, fsync, then rename over ``path``."""
+    """Write to a temporary file in the same folder, fsync, then rename over ``path``.
+
+    The file gets the permissions of any newly created file: 0o666 less the process umask
+    (0o644 under the usual umask 0o022), applied by the kernel when the temporary is created.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    fd, tmp = _new_temporary(path)
     try:
         with os.fdopen(fd, "wb") as handle:
             handle.write(blob)
@@ -51,9 +58,28 @@ def write_atomic(path: str | os.PathLike, blob: bytes) -> None:
             os.fsync(handle.fileno())
         os.replace(tmp, path)
     except BaseException:
-        Path(tmp).unlink(missing_ok=True)
+        tmp.unlink(missing_ok=True)
         raise
     _fsync_folder(path.parent)
+
+
+def _new_temporary(path: Path) -> tuple[int, Path]:
+    """Create ``.<name>.<random>.tmp`` beside ``path``, exclusively, with mode 0o666 & ~umask.
+
+    ``tempfile.mkstemp`` would give 0o600 whatever the umask, and the rename keeps that mode.
+    Asking ``open(2)`` for 0o666 lets the kernel subtract the umask, without reading it (reading
+    it means setting it, which races with other threads).
+    """
+    flags = (os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
+             | getattr(os, "O_CLOEXEC", 0))
+    for _ in range(TEMPORARY_ATTEMPTS):
+        tmp = path.parent / f".{path.name}.{secrets.token_hex(6)}.tmp"
+        try:
+            return os.open(tmp, flags, 0o666), tmp
+        except FileExistsError:
+            continue
+    raise FileExistsError(f"no free temporary name beside {path} after "
+                          f"{TEMPORARY_ATTEMPTS} attempts")
 
 
 def _fsync_folder(folder: Path) -> None:
