@@ -2,7 +2,12 @@
 
 Only the process that owns the sweep writes it, each result in one transaction, so a sweep
 killed at any moment leaves a ledger that is consistent up to the last finished segment.
-Readers (``status``, ``report``, notebooks) may open it while a sweep runs.
+Readers (``status``, ``report``, notebooks) may open it while a sweep runs, read-only with
+:meth:`Ledger.read_only`.
+
+All SQL on the ledger's tables lives here: other modules call a method. The module imports
+neither torch nor hydra (it names the engine's records through :mod:`periodscan.engine.records`
+and :mod:`periodscan.engine.tree`, plain dataclasses), so reading a finished sweep stays light.
 """
 
 from __future__ import annotations
@@ -17,7 +22,7 @@ from typing import Any
 
 import pandas as pd
 
-from periodscan.engine.segment import SegmentResult
+from periodscan.engine.records import SegmentResult
 from periodscan.engine.tree import RunSpec, Segment
 
 FILE_NAME = "ledger.sqlite"
@@ -47,13 +52,26 @@ CREATE TABLE IF NOT EXISTS runs (
 
 
 class Ledger:
-    """Thin wrapper over one SQLite file; one method per thing the engine records or reads."""
+    """Thin wrapper over one SQLite file; one method per thing the engine records or reads.
 
-    def __init__(self, folder: str | Path):
+    ``Ledger(folder)`` opens (or creates) the ledger for writing; ``Ledger.read_only(folder)``
+    opens an existing one with SQLite's read-only mode, for readers that must never write.
+    """
+
+    def __init__(self, folder: str | Path, *, writable: bool = True):
         self.path = Path(folder) / FILE_NAME
-        self.conn = sqlite3.connect(self.path, timeout=30)
-        self.conn.executescript(SCHEMA)
-        self.conn.commit()
+        if writable:
+            self.conn = sqlite3.connect(self.path, timeout=30)
+            self.conn.executescript(SCHEMA)
+            self.conn.commit()
+        else:
+            self.conn = sqlite3.connect(f"{self.path.resolve().as_uri()}?mode=ro", uri=True,
+                                        timeout=30)
+
+    @classmethod
+    def read_only(cls, folder: str | Path) -> Ledger:
+        """Open an existing ledger without write access (no schema change, no file created)."""
+        return cls(folder, writable=False)
 
     def close(self) -> None:
         self.conn.close()
@@ -62,6 +80,16 @@ class Ledger:
     def get_meta(self, key: str) -> str | None:
         row = self.conn.execute("SELECT value FROM meta WHERE key = ?", (key,)).fetchone()
         return row[0] if row else None
+
+    def meta_values(self) -> dict[str, Any]:
+        """Every meta key with its value, JSON decoded (kept as text where it is not JSON)."""
+        out: dict[str, Any] = {}
+        for key, value in self.conn.execute("SELECT key, value FROM meta"):
+            try:
+                out[key] = json.loads(value)
+            except ValueError:
+                out[key] = value
+        return out
 
     def set_meta(self, **values: Any) -> None:
         with self.conn:
@@ -105,8 +133,7 @@ class Ledger:
                        finishes: Iterable[RunSpec], threads: int) -> None:
         """Store one segment's epochs, checkpoint reference and the runs it finishes, atomically."""
         now = time.time()
-        status = ("failed" if result.error else
-                  "diverged" if result.diverged_at is not None else "done")
+        status = result.status
         with self.conn:
             self.conn.execute(
                 "UPDATE segments SET status=?, seconds=?, checkpoint_file=?, checkpoint_sha256=?, "
@@ -119,11 +146,9 @@ class Ledger:
                 [(result.segment_id, e.epoch, e.lr, e.train_loss, e.train_acc, e.test_loss,
                   e.test_acc, int(e.deficit_on), e.seconds) for e in result.epochs],
             )
-            self.conn.executemany(
-                "INSERT OR REPLACE INTO extras VALUES (?, ?, ?, ?)",
-                [(result.segment_id, epoch, name, value) for epoch, name, value in result.extras],
-            )
-            if result.error is None and result.diverged_at is None:
+            self._insert_extras(
+                (result.segment_id, epoch, name, value) for epoch, name, value in result.extras)
+            if status == "done":
                 self.conn.executemany(
                     "UPDATE runs SET status='done', test_acc=?, test_loss=?, n_test=?, correct=?, "
                     "error=NULL, finished_at=? WHERE run_id=?",
@@ -144,6 +169,20 @@ class Ledger:
                  for rid in run_ids],
             )
 
+    def record_extras(self, readings: Iterable[tuple[str, int, str, float]]) -> None:
+        """Store monitor readings ``(segment_id, epoch, name, value)`` in one transaction.
+
+        For readings taken apart from training (a replay of a trained segment); a reading
+        already stored under the same (segment, epoch, name) is replaced.
+        """
+        with self.conn:
+            self._insert_extras(readings)
+
+    def _insert_extras(self, readings: Iterable[tuple[str, int, str, float]]) -> None:
+        self.conn.executemany("INSERT OR REPLACE INTO extras VALUES (?, ?, ?, ?)",
+                              [(sid, int(epoch), name, float(value))
+                               for sid, epoch, name, value in readings])
+
     # --- reading ------------------------------------------------------------------------
     def runs_frame(self) -> pd.DataFrame:
         """One row per run (without the correctness blob)."""
@@ -151,16 +190,47 @@ class Ledger:
             "SELECT run_id, seed, start_epoch, length, end_epoch, is_baseline, status, test_acc, "
             "test_loss, n_test, diverged_at, error, finished_at FROM runs", self.conn)
 
+    def run_paths_frame(self) -> pd.DataFrame:
+        """One row per run: run_id, status, path (its segment ids, comma-separated), error."""
+        return pd.read_sql_query("SELECT run_id, status, path, error FROM runs", self.conn)
+
     def segments_frame(self) -> pd.DataFrame:
         return pd.read_sql_query("SELECT * FROM segments", self.conn)
+
+    def epoch_seconds_frame(self) -> pd.DataFrame:
+        """Wall seconds of every recorded epoch: segment_id, seconds (one row per epoch)."""
+        return pd.read_sql_query("SELECT segment_id, seconds FROM epochs", self.conn)
 
     def epochs_frame(self) -> pd.DataFrame:
         """Per-epoch metrics of every run, following each run's path through the tree."""
         return self._along_paths(pd.read_sql_query("SELECT * FROM epochs", self.conn))
 
-    def extras_frame(self) -> pd.DataFrame:
-        """Per-epoch monitor readings (name, value) of every run, along each run's path."""
-        return self._along_paths(pd.read_sql_query("SELECT * FROM extras", self.conn))
+    def extras_frame(self, prefix: str | None = None) -> pd.DataFrame:
+        """Per-epoch monitor readings (name, value) of every run, along each run's path.
+
+        ``prefix`` keeps only readings whose name starts with it (e.g. ``"fisher/"``).
+        """
+        return self._along_paths(self.extras_by_segment(prefix=prefix))
+
+    def extras_by_segment(self, segment_ids: Iterable[str] | None = None,
+                          prefix: str | None = None) -> pd.DataFrame:
+        """Monitor readings as stored: segment_id, epoch, name, value.
+
+        ``segment_ids`` keeps the readings of those segments only; ``prefix`` keeps names that
+        start with it (compared exactly: ``_`` and ``%`` are not wildcards).
+        """
+        where, params = [], []
+        if segment_ids is not None:
+            where.append("segment_id IN (SELECT value FROM json_each(?))")
+            params.append(json.dumps(sorted(set(segment_ids))))
+        if prefix is not None:
+            where.append("substr(name, 1, ?) = ?")
+            params += [len(prefix), prefix]
+        query = "SELECT segment_id, epoch, name, value FROM extras"
+        if where:
+            query += " WHERE " + " AND ".join(where)
+        return pd.read_sql_query(query + " ORDER BY segment_id, epoch, name", self.conn,
+                                 params=params)
 
     def _along_paths(self, epochs: pd.DataFrame) -> pd.DataFrame:
         paths = self.conn.execute("SELECT run_id, seed, start_epoch, length, path FROM runs")
@@ -174,6 +244,7 @@ class Ledger:
         return pd.concat(frames, ignore_index=True).sort_values(["run_id", "epoch"])
 
     def correctness(self, run_id: str) -> tuple[bytes, int] | None:
+        """A run's packed per-example correctness and its number of test examples, if stored."""
         row = self.conn.execute("SELECT correct, n_test FROM runs WHERE run_id=?",
                                 (run_id,)).fetchone()
         return (row[0], row[1]) if row and row[0] is not None else None

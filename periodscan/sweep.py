@@ -243,8 +243,9 @@ def dry_run(config: DictConfig | dict | Sequence[str] = (), calibrate: bool = Tr
 def _time_one_epoch(prep: Prepared) -> float:
     training = {k: prep.plain[k] for k in TRAINING_KEYS}
     threads = int(prep.plain["executor"].get("threads_per_worker", 1))
-    job = SegmentJob("calibration", training, prep.seeds[0], 0, 3, False, None, False, False,
-                     threads)
+    job = SegmentJob(segment_id="calibration", config=training, seed=prep.seeds[0], begin=0,
+                     end=3, deficit_on=False, parent_checkpoint=None, keep_checkpoint=False,
+                     evaluate_at_end=False, threads=threads)
     result = run_segment(job)
     if result.error:
         raise PeriodscanError(f"a trial epoch failed: {result.error.strip().splitlines()[-1]}")

@@ -25,8 +25,9 @@ def _replay_leaf(prep, run_id):
     name, _ = ledger.checkpoints()[leaf.parent]
     ledger.close()
     training = {k: prep.plain[k] for k in TRAINING_KEYS}
-    job = SegmentJob(leaf.segment_id, training, leaf.seed, leaf.begin, leaf.end,
-                     leaf.deficit_on, (prep.folder / name).read_bytes(), keep_checkpoint=True,
+    job = SegmentJob(segment_id=leaf.segment_id, config=training, seed=leaf.seed,
+                     begin=leaf.begin, end=leaf.end, deficit_on=leaf.deficit_on,
+                     parent_checkpoint=(prep.folder / name).read_bytes(), keep_checkpoint=True,
                      evaluate_at_end=True)
     result = run_segment(job)
     assert result.error is None, result.error

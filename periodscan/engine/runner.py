@@ -108,7 +108,8 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
             if blob is None:
                 blob = plan.available[seg.parent].read_bytes()
         probe = monitor if _monitored(tree, sid, monitor) else None
-        return SegmentJob(sid, training, seg.seed, seg.begin, seg.end, seg.deficit_on, blob,
+        return SegmentJob(segment_id=sid, config=training, seed=seg.seed, begin=seg.begin,
+                          end=seg.end, deficit_on=seg.deficit_on, parent_checkpoint=blob,
                           keep_checkpoint=bool(seg.children), evaluate_at_end=bool(seg.finishes),
                           threads=threads, monitor=probe)
 
@@ -154,8 +155,9 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
                         waiting.add(sid)
                         continue
                     why = (str(err).strip().splitlines() or [""])[0]
-                    result = SegmentResult(sid, error=f"worker lost {retries[sid]} times: "
-                                                      f"{type(err).__name__}: {why}")
+                    result = SegmentResult(
+                        segment_id=sid,
+                        error=f"worker lost {retries[sid]} times: {type(err).__name__}: {why}")
                 received += 1
                 kill_point(f"before-checkpoint:{received}")
                 _record(tree, ledger, folder, result, threads, blobs, received)

@@ -11,7 +11,6 @@ import json
 import time
 import traceback
 from collections.abc import Callable
-from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -21,44 +20,10 @@ from hydra.utils import instantiate
 from periodscan.data.base import TensorData
 from periodscan.deficits.base import Deficit
 from periodscan.engine import checkpoint
+from periodscan.engine.records import EpochRecord, SegmentJob, SegmentResult
 from periodscan.engine.schedule import build_optimizer
-from periodscan.engine.training import EpochRecord, evaluate, prepare_deficit, train_epoch
+from periodscan.engine.training import evaluate, prepare_deficit, train_epoch
 from periodscan.seeding import ONCE, derive_seed
-
-
-@dataclass
-class SegmentJob:
-    """Everything a worker needs to train epochs ``[begin, end)`` of one seed."""
-
-    segment_id: str
-    config: dict[str, Any]  # plain containers: data, model, deficit, schedule
-    seed: int
-    begin: int
-    end: int
-    deficit_on: bool
-    parent_checkpoint: bytes | None
-    keep_checkpoint: bool
-    evaluate_at_end: bool
-    threads: int = 1
-    monitor: dict[str, Any] | None = None  # config of a per-epoch probe (e.g. Fisher trace)
-
-
-@dataclass
-class SegmentResult:
-    """What comes back: per-epoch metrics, the end checkpoint and the final evaluation."""
-
-    segment_id: str
-    epochs: list[EpochRecord] = field(default_factory=list)
-    checkpoint: bytes | None = None
-    test_acc: float | None = None
-    test_loss: float | None = None
-    correct: bytes | None = None  # np.packbits of the per-example correctness vector
-    n_test: int = 0
-    diverged_at: int | None = None
-    seconds: float = 0.0
-    error: str | None = None
-    extras: list[tuple[int, str, float]] = field(default_factory=list)  # (epoch, name, value)
-
 
 _DATA_CACHE: dict[str, TensorData] = {}
 
@@ -84,7 +49,7 @@ def run_segment(job: SegmentJob) -> SegmentResult:
     try:
         result = _train(job)
     except Exception:  # noqa: BLE001 - recorded in the ledger, shown by status/report
-        result = SegmentResult(job.segment_id, error=traceback.format_exc(limit=8))
+        result = SegmentResult(segment_id=job.segment_id, error=traceback.format_exc(limit=8))
     result.seconds = time.perf_counter() - started
     return result
 
@@ -103,7 +68,7 @@ def _train(job: SegmentJob) -> SegmentResult:
         optimizer.load_state_dict(state["optimizer"])
     deficit = _deficit(config, data, job.seed) if job.deficit_on else None
 
-    result = SegmentResult(job.segment_id)
+    result = SegmentResult(segment_id=job.segment_id)
     probe = _monitor(job.monitor, data, job.seed, result.extras)
     result.epochs, final, result.diverged_at = train_epochs(
         model, optimizer, data, config["schedule"], job.seed, range(job.begin, job.end),
@@ -159,8 +124,10 @@ def train_epochs(model, optimizer, data: TensorData, schedule: dict[str, Any], s
             model, optimizer, data, schedule, seed, epoch, deficit
         )
         held_out = evaluate(model, data.x_test, data.y_test)
-        records.append(EpochRecord(epoch, lr, train_loss, train_acc, held_out.loss, held_out.acc,
-                                   deficit is not None, time.perf_counter() - tick))
+        records.append(EpochRecord(
+            epoch=epoch, lr=lr, train_loss=train_loss, train_acc=train_acc,
+            test_loss=held_out.loss, test_acc=held_out.acc, deficit_on=deficit is not None,
+            seconds=time.perf_counter() - tick))
         if not np.isfinite(train_loss):
             return records, held_out, epoch
         if after_epoch is not None:

@@ -26,20 +26,6 @@ EVAL_BATCH = 1024
 
 
 @dataclass
-class EpochRecord:
-    """Metrics of one finished epoch; accuracies are fractions in [0, 1]."""
-
-    epoch: int
-    lr: float
-    train_loss: float
-    train_acc: float
-    test_loss: float
-    test_acc: float
-    deficit_on: bool
-    seconds: float
-
-
-@dataclass
 class Evaluation:
     """Held-out evaluation: mean loss, accuracy and the per-example correctness vector."""
 

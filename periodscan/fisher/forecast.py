@@ -205,9 +205,11 @@ def _replay(trunks: RunTree, ledger: Ledger, seeds: list[int], training: dict, e
     if not seeds:
         return 0
     longest = {r.seed: (rid, r) for rid, r in _longest_baselines(trunks).items()}
-    jobs = {executor.submit(SegmentJob(f"fisher-replay-{seed}", training, seed, 0,
-                                       longest[seed][1].end, False, None, False, False,
-                                       threads, monitor)): seed for seed in seeds}
+    jobs = {executor.submit(SegmentJob(
+        segment_id=f"fisher-replay-{seed}", config=training, seed=seed, begin=0,
+        end=longest[seed][1].end, deficit_on=False, parent_checkpoint=None,
+        keep_checkpoint=False, evaluate_at_end=False, threads=threads, monitor=monitor)): seed
+        for seed in seeds}
     stored = ledger.epochs_frame()
     pending = set(jobs)
     while pending:
