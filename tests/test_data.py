@@ -6,6 +6,7 @@ import glob
 import os
 import random
 import struct
+import warnings
 
 import numpy as np
 import pytest
@@ -392,6 +393,7 @@ def _fake_mnist(root, n_train=20, n_test=10) -> dict[str, np.ndarray]:
     return arrays
 
 
+@pytest.mark.filterwarnings("ignore:.*no training example:UserWarning")
 def test_torchvision_reads_local_mnist(tmp_path):
     ref = _fake_mnist(tmp_path)
     d = load_torchvision("MNIST", str(tmp_path))
@@ -400,9 +402,25 @@ def test_torchvision_reads_local_mnist(tmp_path):
     np.testing.assert_allclose(d.x_train[:, 0].numpy(), ref_train, atol=1e-5)
     np.testing.assert_allclose(d.x_test[:, 0].numpy(), ref_test, atol=1e-5)
     np.testing.assert_array_equal(d.y_test.numpy(), ref["t10k_y"])
-    small = load_torchvision("MNIST", str(tmp_path), max_train=8, max_test=4)
+    small = load_torchvision("MNIST", str(tmp_path), n_train=8, n_test=4)
     assert (len(small.x_train), len(small.x_test)) == (8, 4)
-    assert_same(small, load_torchvision("MNIST", str(tmp_path), max_train=8, max_test=4))
+    assert_same(small, load_torchvision("MNIST", str(tmp_path), n_train=8, n_test=4))
+    # Reference: the documented draw, numpy's Generator.permutation with subsample_seed (+1).
+    keep = np.sort(np.random.default_rng(0).permutation(20)[:8])
+    np.testing.assert_array_equal(small.y_train.numpy(), ref["train_y"][keep])
+
+
+@pytest.mark.filterwarnings("ignore:.*no training example:UserWarning")
+def test_torchvision_former_cap_names_still_work(tmp_path):
+    _fake_mnist(tmp_path)
+    with pytest.warns(FutureWarning) as caught:
+        old = load_torchvision("MNIST", str(tmp_path), max_train=8, max_test=4, subsample_seed=3)
+    assert [str(w.message).split(";")[0] for w in caught if w.category is FutureWarning] == [
+        "data.max_train is now called data.n_train", "data.max_test is now called data.n_test"]
+    assert_same(old, load_torchvision("MNIST", str(tmp_path), n_train=8, n_test=4,
+                                      subsample_seed=3))
+    with pytest.raises(ConfigError, match="give only data.n_test"):
+        load_torchvision("MNIST", str(tmp_path), n_test=4, max_test=4)
 
 
 def test_torchvision_errors(tmp_path):
@@ -422,6 +440,135 @@ def test_to_gray_matches_pil():
     # PIL docs (Image.convert): L = R * 299/1000 + G * 587/1000 + B * 114/1000, stored rounded.
     pil = np.asarray(Image.fromarray(rgb).convert("L"), dtype=np.float64)
     np.testing.assert_allclose(ours, pil, atol=0.5 + 1e-6)
+
+
+# ---------------------------------------------------------------- size caps (n_train, n_test)
+
+
+def _documented_cap(n: int, keep: int | None, seed: int) -> np.ndarray:
+    """Reference of the documented draw: the first ``keep`` of numpy's seeded permutation."""
+    if keep is None or keep >= n:
+        return np.arange(n)
+    return np.sort(np.random.default_rng(seed).permutation(n)[:keep])
+
+
+def test_digits_caps_follow_the_documented_draw():
+    from sklearn.datasets import load_digits as sk_load_digits
+    from sklearn.model_selection import train_test_split
+
+    bunch = sk_load_digits()
+    tr, te = train_test_split(np.arange(1797), test_size=0.25, random_state=2,
+                              stratify=bunch.target)
+    tr, te = np.sort(tr), np.sort(te)
+    tr, te = tr[_documented_cap(len(tr), 500, 2)], te[_documented_cap(len(te), 100, 3)]
+    ref_train, ref_test = unstandardize_like(bunch.images[tr], bunch.images[te])
+    d = load_digits(split_seed=2, n_train=500, n_test=100)
+    assert (len(d.x_train), len(d.x_test)) == (500, 100)
+    np.testing.assert_allclose(d.x_train[:, 0].numpy(), ref_train, atol=1e-5)
+    np.testing.assert_allclose(d.x_test[:, 0].numpy(), ref_test, atol=1e-5)
+    np.testing.assert_array_equal(d.y_train.numpy(), bunch.target[tr])
+
+
+def test_caps_keep_the_held_out_split_fixed(tmp_path):
+    rng = np.random.default_rng(4)
+    x, y = rng.standard_normal((200, 6)).astype(np.float32), np.arange(200) % 4
+    np.savez(tmp_path / "d.npz", x_train=x, y_train=y)
+    load = lambda **caps: load_npz(str(tmp_path / "d.npz"), standardize=False, **caps)  # noqa: E731
+    whole = load()
+    assert (len(whole.x_train), len(whole.x_test)) == (160, 40)
+    assert_same(whole, load(n_train=None, n_test=None))
+    assert_same(whole, load(n_train=1000, n_test=1000))  # caps above the sizes keep everything
+    for n_train in (10, 50, 159):  # the train cap never touches the held-out examples
+        d = load(n_train=n_train)
+        assert len(d.x_train) == n_train
+        assert torch.equal(d.x_test, whole.x_test) and torch.equal(d.y_test, whole.y_test)
+        rows = {r.tobytes() for r in whole.x_train.numpy()}
+        assert all(r.tobytes() in rows for r in d.x_train.numpy())  # a subset of training
+    small, large = load(n_test=10), load(n_test=25)
+    assert torch.equal(small.x_train, whole.x_train)
+    big = {r.tobytes() for r in large.x_test.numpy()}
+    assert all(r.tobytes() in big for r in small.x_test.numpy())  # nested: smaller cap, subset
+
+
+def test_npz_caps_apply_to_given_test_arrays(tmp_path):
+    rng = np.random.default_rng(5)
+    arrays = {"x_train": rng.standard_normal((30, 5)), "y_train": np.arange(30) % 3,
+              "x_test": rng.standard_normal((12, 5)), "y_test": np.arange(12) % 3}
+    np.savez(tmp_path / "d.npz", **arrays)
+    d = load_npz(str(tmp_path / "d.npz"), standardize=False, n_train=20, n_test=5, split_seed=1)
+    keep_train, keep_test = _documented_cap(30, 20, 1), _documented_cap(12, 5, 2)
+    np.testing.assert_array_equal(d.x_train[:, 0].numpy(),
+                                  arrays["x_train"][keep_train].astype(np.float32))
+    np.testing.assert_array_equal(d.y_test.numpy(), arrays["y_test"][keep_test])
+    assert d.num_classes == 3
+
+
+def test_image_folder_caps_read_only_the_kept_images(tmp_path, monkeypatch):
+    _write_tree(tmp_path / "img", sizes=((6, 5),) * 10)
+    whole = load_image_folder(str(tmp_path / "img"), image_size=4, test_fraction=0.3)
+    opened = []
+    real_open = Image.open
+    monkeypatch.setattr(Image, "open", lambda path, *a: opened.append(path) or real_open(path, *a))
+    d = load_image_folder(str(tmp_path / "img"), image_size=4, test_fraction=0.3, n_train=8,
+                          n_test=4)
+    assert (len(d.x_train), len(d.x_test), len(opened)) == (8, 4, 12)
+    # The kept test images are the documented draw from the uncapped held-out split.
+    np.testing.assert_array_equal(d.y_test.numpy(), whole.y_test.numpy()[_documented_cap(6, 4, 1)])
+
+    _write_tree(tmp_path / "held", sizes=((6, 5),) * 3)
+    t = load_image_folder(str(tmp_path / "img"), image_size=4, test_root=str(tmp_path / "held"),
+                          n_train=7, n_test=2)
+    assert (len(t.x_train), len(t.x_test)) == (7, 2)
+    np.testing.assert_array_equal(t.y_test.numpy(), (np.arange(6) // 3)[_documented_cap(6, 2, 1)])
+
+
+@pytest.mark.parametrize("field, value", [("n_train", 1), ("n_test", 0), ("n_train", 2.5)])
+def test_caps_are_checked(tmp_path, field, value):
+    with pytest.raises(ConfigError, match=f"'data.{field}' parameter must be .* Got"):
+        load_digits(**{field: value})
+
+
+# ---------------------------------------------------------------- classes with no training example
+
+
+def _tensor_data(y_train, y_test, num_classes, name="mydata"):
+    return TensorData(torch.zeros(len(y_train), 1, 4), torch.tensor(y_train),
+                      torch.zeros(len(y_test), 1, 4), torch.tensor(y_test), num_classes, name)
+
+
+@pytest.mark.parametrize(
+    "y_train, y_test, num_classes, needles",
+    [
+        ([1, 2, 3, 4, 5, 6], [1, 6], 7, ["mydata", "1 of 7", "class 0)", "subtract 1"]),
+        ([2, 3, 4], [2, 4], 5, ["2 of 5", "class 0, 1)", "subtract 2"]),
+        ([0, 1, 2], [0, 1], 5, ["2 of 5", "class 3, 4)", "num_classes to 3"]),
+        ([0, 2, 3], [0, 1, 3], 4, ["class 1)", "only in the held-out split"]),
+        ([0, 1, 4], [0, 4], 5, ["class 2, 3)", "renumber", "data.n_train"]),
+        (list(range(0, 30, 2)), [0], 30, ["15 of 30", "class 1, 3, 5", "and 5 more"]),
+    ],
+)
+def test_absent_class_warns_in_one_line(y_train, y_test, num_classes, needles):
+    with pytest.warns(UserWarning) as caught:
+        _tensor_data(y_train, y_test, num_classes)
+    assert len(caught) == 1
+    message = str(caught[0].message)
+    assert "\n" not in message and message.startswith("mydata: ")
+    for needle in needles:
+        assert needle in message
+
+
+def test_every_class_present_does_not_warn():
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        _tensor_data([0, 1, 2, 2], [0], 3)
+
+
+def test_npz_labels_one_to_six_warn(tmp_path):
+    x, y = np.random.default_rng(0).standard_normal((60, 5)), np.arange(60) % 6 + 1
+    np.savez(tmp_path / "scores.npz", x_train=x, y_train=y)
+    with pytest.warns(UserWarning, match=r"^scores: 1 of 7 classes .*labels run 1\.\.6"):
+        d = load_npz(str(tmp_path / "scores.npz"))
+    assert d.num_classes == 7  # still runs as asked; the warning says what was likely meant
 
 
 # ---------------------------------------------------------------- shared behaviour and configs
@@ -485,6 +632,23 @@ def test_every_data_config_instantiates(path, tmp_path):
     data = instantiate(cfg)
     assert isinstance(data, TensorData)
     assert data.x_train.dtype == torch.float32 and data.y_train.dtype == torch.int64
+
+
+@pytest.mark.parametrize("path", CONFIGS, ids=[os.path.basename(p) for p in CONFIGS])
+def test_every_data_config_takes_the_tiny_preset_sizes(path, tmp_path):
+    tiny = OmegaConf.load(os.path.join(CONFIG_DIR, os.pardir, "experiment", "tiny.yaml"))
+    sizes = {"n_train": 40, "n_test": 12}
+    assert set(tiny.data) == set(sizes)  # the keys a size preset sets on any data
+    cfg = OmegaConf.load(path)
+    assert {"n_train", "n_test"} <= set(cfg)  # listed in every option, null where they are caps
+    name = os.path.splitext(os.path.basename(path))[0]
+    required = [k for k in cfg if OmegaConf.is_missing(cfg, k)]
+    if required:
+        cfg = OmegaConf.merge(cfg, _fill_required(name, tmp_path))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # a cap may leave a class out
+        data = instantiate(OmegaConf.merge(cfg, sizes))
+    assert len(data.x_train) <= 40 and len(data.x_test) <= 12
 
 
 def test_builtin_configs_exist():

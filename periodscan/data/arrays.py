@@ -15,6 +15,8 @@ import numpy as np
 from periodscan.data import prep
 from periodscan.data.base import TensorData
 from periodscan.data.prep import (
+    cap_split,
+    check_caps,
     check_choice,
     check_fraction,
     check_int,
@@ -37,6 +39,8 @@ def load_npz(
     num_classes: int | None = None,
     standardize: bool = True,
     layout: str = "auto",
+    n_train: int | None = None,
+    n_test: int | None = None,
 ) -> TensorData:
     """Load inputs and labels from the named arrays of an .npz file.
 
@@ -46,9 +50,11 @@ def load_npz(
     x_train, y_train : names of the training inputs and labels.
     x_test, y_test : names of the held-out arrays. If the file has neither (or both are null),
         the training arrays are split, stratified, by ``test_fraction`` and ``split_seed``.
-    num_classes : defaults to the largest label + 1.
+    num_classes : defaults to the largest label + 1 (over all examples, before any cap).
     standardize : scale inputs by per-channel training mean/std (else keep values as float32).
     layout : input layout, or "auto" (see :func:`to_channels_first`).
+    n_train, n_test : keep at most this many examples of each split (None: all), drawn with
+        ``split_seed`` after the split, so the held-out examples never depend on ``n_train``.
     """
     path = existing_path("data.path", path, folder=False)
     test_fraction = check_fraction("data.test_fraction", test_fraction)
@@ -56,7 +62,37 @@ def load_npz(
     layout = check_choice("data.layout", layout, LAYOUTS)
     if num_classes is not None:
         num_classes = check_int("data.num_classes", num_classes, 2)
+    n_train, n_test = check_caps(n_train, n_test)
 
+    names = (x_train, y_train, x_test, y_test)
+    xa, ya, xb, yb = _splits(path, names, layout, test_fraction, split_seed)
+    top = int(np.concatenate([ya, yb]).max())  # ya is never empty; yb may be
+    if num_classes is None:
+        num_classes = top + 1
+    elif top >= num_classes:
+        raise bad_value("data.num_classes", f"greater than the largest label ({top})", num_classes)
+    train, test = cap_split(np.arange(len(ya)), np.arange(len(yb)), n_train, n_test, split_seed)
+    xa, ya, xb, yb = xa[train], ya[train], xb[test], yb[test]
+    if len(np.unique(ya)) < 2:
+        raise DataError(f"{path}: '{y_train}' holds a single class ({ya[0]}); need at least 2")
+    if standardize:
+        xa, xb = prep.standardize(xa, xb)
+    name = os.path.splitext(os.path.basename(path))[0]
+    return TensorData(xa, ya, xb, yb, num_classes=num_classes, name=name)
+
+
+def _splits(
+    path: str, names: tuple[str, str, str | None, str | None], layout: str,
+    test_fraction: float, split_seed: int,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Channels-first inputs and int64 labels of the train and held-out splits, uncapped.
+
+    ``names`` are the arrays' names in the file: x_train, y_train, x_test, y_test.
+
+    The held-out split is the file's test arrays when it has both, else a stratified split of
+    the training arrays fixed by ``split_seed``.
+    """
+    x_train, y_train, x_test, y_test = names
     arrays = _read(path)
     xa, ya = _get(arrays, path, "x_train", x_train), _get(arrays, path, "y_train", y_train)
     has_test = [n is not None and n in arrays for n in (x_test, y_test)]
@@ -70,21 +106,9 @@ def load_npz(
     if all(has_test):
         xb = to_channels_first(_inputs(arrays[x_test], path, x_test), layout, f"{path}: {x_test}")
         yb = _labels(arrays[y_test], path, y_test, len(xb), x_test)
-    else:
-        train, test = stratified_split(ya, test_fraction, split_seed, f"data.path '{path}'")
-        xa, ya, xb, yb = xa[train], ya[train], xa[test], ya[test]
-
-    if len(np.unique(ya)) < 2:
-        raise DataError(f"{path}: '{y_train}' holds a single class ({ya[0]}); need at least 2")
-    top = int(max(ya.max(), yb.max()))
-    if num_classes is None:
-        num_classes = top + 1
-    elif top >= num_classes:
-        raise bad_value("data.num_classes", f"greater than the largest label ({top})", num_classes)
-    if standardize:
-        xa, xb = prep.standardize(xa, xb)
-    name = os.path.splitext(os.path.basename(path))[0]
-    return TensorData(xa, ya, xb, yb, num_classes=num_classes, name=name)
+        return xa, ya, xb, yb
+    train, test = stratified_split(ya, test_fraction, split_seed, f"data.path '{path}'")
+    return xa[train], ya[train], xa[test], ya[test]
 
 
 def to_channels_first(x: np.ndarray, layout: str, where: str) -> np.ndarray:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import torch
@@ -39,7 +40,11 @@ class TensorData:
         return tuple(self.x_train.shape[1:])
 
     def validate(self) -> None:
-        """Raise DataError for anything that would make training meaningless."""
+        """Raise DataError for anything that would make training meaningless.
+
+        A class in ``[0, num_classes)`` with no training example only warns: the model still
+        trains, but the class count is most likely not what the labels meant.
+        """
         splits = (("train", self.x_train, self.y_train), ("test", self.x_test, self.y_test))
         for part, x, y in splits:
             if x.ndim not in (3, 4):
@@ -66,7 +71,40 @@ class TensorData:
                 f"{self.name}: labels must lie in [0, {self.num_classes}); "
                 f"got range [{int(labels.min())}, {int(labels.max())}]"
             )
-        if torch.unique(self.y_train).numel() < 2:
+        present = torch.unique(self.y_train)
+        if present.numel() < 2:
             raise DataError(
                 f"{self.name}: the training split holds a single class; need at least 2"
             )
+        if present.numel() < self.num_classes:
+            message = _absent_classes(self.name, present.tolist(),
+                                      torch.unique(self.y_test).tolist(), self.num_classes)
+            warnings.warn(message, UserWarning, stacklevel=2)
+
+
+def _absent_classes(name: str, train: list[int], test: list[int], num_classes: int) -> str:
+    """One line naming the classes with no training example and the likely mistake.
+
+    ``train`` and ``test`` are the sorted class ids that occur in each split. Labels that run
+    from 1 to K read as K + 1 classes, class 0 never seen: the common slip. A ``num_classes``
+    larger than the labels need is another; a class only in the held-out split a third.
+    """
+    missing = sorted(set(range(num_classes)) - set(train))
+    labels = sorted(set(train) | set(test))
+    low, high = labels[0], labels[-1]
+    ids = ", ".join(map(str, missing[:10])) + (f" and {len(missing) - 10} more"
+                                               if len(missing) > 10 else "")
+    if set(missing) <= set(test):
+        hint = ("they occur only in the held-out split; the training split needs examples of "
+                "every class (is data.n_train too small?)")
+    elif missing == list(range(low)) and labels == list(range(low, high + 1)):
+        hint = (f"labels run {low}..{high} but class ids must be 0..K-1: subtract {low} "
+                f"from every label")
+    elif missing == list(range(high + 1, num_classes)):
+        hint = f"labels stop at {high}: set num_classes to {high + 1} if there are no more classes"
+    else:
+        hint = ("class ids must be 0..K-1 with every class in the training split: renumber the "
+                "labels (numpy.unique(labels, return_inverse=True) does), or raise data.n_train "
+                "if a cap left them out")
+    return (f"{name}: {len(missing)} of {num_classes} classes have no training example "
+            f"(class {ids}); {hint}")

@@ -14,6 +14,8 @@ from PIL import Image
 
 from periodscan.data.base import TensorData
 from periodscan.data.prep import (
+    cap_split,
+    check_caps,
     check_fraction,
     check_int,
     existing_path,
@@ -32,6 +34,8 @@ def load_image_folder(
     test_fraction: float = 0.2,
     split_seed: int = 0,
     test_root: str | None = None,
+    n_train: int | None = None,
+    n_test: int | None = None,
 ) -> TensorData:
     """Load ``root/<class>/<image>`` as (N, C, image_size, image_size) tensors.
 
@@ -44,6 +48,9 @@ def load_image_folder(
         Every image is converted, so mixed modes (palette, RGBA, grey) are fine.
     test_fraction, split_seed : stratified held-out split of ``root`` when ``test_root`` is unset.
     test_root : a second folder of the same layout used as the held-out split instead.
+    n_train, n_test : keep at most this many images of each split (None: all), drawn with
+        ``split_seed`` after the split, so the held-out images never depend on ``n_train``.
+        Only the kept images are read.
 
     Pixels are scaled by per-channel mean/std of the training split.
     """
@@ -52,30 +59,45 @@ def load_image_folder(
         image_size = check_int("data.image_size", image_size, 1, 4096)
     test_fraction = check_fraction("data.test_fraction", test_fraction)
     split_seed = check_int("data.split_seed", split_seed, 0)
+    n_train, n_test = check_caps(n_train, n_test)
     mode = "L" if grayscale else "RGB"
 
     classes = _class_names(root, "data.root")
     files, y = _list_images(root, classes)
-    x = _read_images(files, mode, image_size, "data.root")
     if test_root is None:
         train, test = stratified_split(y, test_fraction, split_seed, f"data.root '{root}'")
-        x_train, y_train, x_test, y_test = x[train], y[train], x[test], y[test]
+        train, test = cap_split(train, test, n_train, n_test, split_seed)
+        used = np.union1d(train, test)  # read in file order, as if every image were kept
+        x = _read_images([files[i] for i in used], mode, image_size, "data.root")
+        x_train, x_test = x[np.searchsorted(used, train)], x[np.searchsorted(used, test)]
+        y_train, y_test = y[train], y[test]
     else:
         test_root = existing_path("data.test_root", test_root, folder=True)
-        unknown = sorted(set(_class_names(test_root, "data.test_root")) - set(classes))
-        if unknown:
-            raise DataError(
-                f"data.test_root: class folders {unknown} in '{test_root}' are not among the "
-                f"classes of data.root: {classes}"
-            )
-        test_classes = [c for c in classes if os.path.isdir(os.path.join(test_root, c))]
-        test_files, test_y = _list_images(test_root, test_classes)
-        test_y = np.array([classes.index(test_classes[i]) for i in test_y], dtype=np.int64)
-        x_test = _read_images(test_files, mode, image_size, "data.test_root", files[0], x.shape[1:])
-        x_train, y_train, y_test = x, y, test_y
+        test_files, y_test = _test_images(test_root, classes)
+        train, test = cap_split(
+            np.arange(len(y)), np.arange(len(y_test)), n_train, n_test, split_seed
+        )
+        x_train = _read_images([files[i] for i in train], mode, image_size, "data.root")
+        x_test = _read_images([test_files[i] for i in test], mode, image_size,
+                              "data.test_root", files[train[0]], x_train.shape[1:])
+        y_train, y_test = y[train], y_test[test]
     x_train, x_test = standardize(x_train, x_test)
     name = os.path.basename(os.path.normpath(root))
     return TensorData(x_train, y_train, x_test, y_test, num_classes=len(classes), name=name)
+
+
+def _test_images(test_root: str, classes: list[str]) -> tuple[list[str], np.ndarray]:
+    """Image paths of ``test_root`` and their labels, numbered by the classes of ``root``."""
+    unknown = sorted(set(_class_names(test_root, "data.test_root")) - set(classes))
+    if unknown:
+        raise DataError(
+            f"data.test_root: class folders {unknown} in '{test_root}' are not among the "
+            f"classes of data.root: {classes}"
+        )
+    test_classes = [c for c in classes if os.path.isdir(os.path.join(test_root, c))]
+    test_files, test_y = _list_images(test_root, test_classes)
+    labels = np.array([classes.index(test_classes[i]) for i in test_y], dtype=np.int64)
+    return test_files, labels
 
 
 def _class_names(root: str, field: str) -> list[str]:

@@ -91,6 +91,26 @@ def subsample(n: int, keep: int | None, seed: int) -> np.ndarray:
     return np.sort(np.random.default_rng(seed).permutation(n)[:keep])
 
 
+def cap_split(
+    train: np.ndarray, test: np.ndarray, n_train: int | None, n_test: int | None, seed: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Keep at most ``n_train`` of the ``train`` indices and ``n_test`` of the ``test`` ones.
+
+    Each part is cut on its own (:func:`subsample` with ``seed`` for train, ``seed + 1`` for
+    test), so the held-out examples never depend on ``n_train`` and a smaller ``n_test`` keeps a
+    subset of the larger one's draw order. ``None`` keeps a part whole, so without caps the
+    indices come back unchanged.
+    """
+    return train[subsample(len(train), n_train, seed)], test[subsample(len(test), n_test, seed + 1)]
+
+
+def check_caps(n_train: object, n_test: object) -> tuple[int | None, int | None]:
+    """Check the ``data.n_train`` / ``data.n_test`` caps: null, or at least 2 and 1 examples."""
+    return check_optional_int("data.n_train", n_train, 2), check_optional_int(
+        "data.n_test", n_test, 1
+    )
+
+
 def standardize(x_train: np.ndarray, x_test: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per-channel mean/std from the training split only, applied to both splits.
 

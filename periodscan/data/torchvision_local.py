@@ -9,18 +9,20 @@ split is kept.
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 
 from periodscan.data.base import TensorData
 from periodscan.data.prep import (
+    cap_split,
+    check_caps,
     check_int,
-    check_optional_int,
     existing_path,
     standardize,
-    subsample,
     to_gray,
 )
-from periodscan.errors import DataError, bad_value
+from periodscan.errors import ConfigError, DataError, bad_value
 
 _IDX = (
     "train-images-idx3-ubyte, train-labels-idx1-ubyte, t10k-images-idx3-ubyte, "
@@ -40,10 +42,13 @@ EXPECTED_FILES = {
 def load_torchvision(
     name: str,
     root: str,
-    max_train: int | None = None,
-    max_test: int | None = None,
+    n_train: int | None = None,
+    n_test: int | None = None,
     grayscale: bool = False,
     subsample_seed: int = 0,
+    *,
+    max_train: int | None = None,
+    max_test: int | None = None,
 ) -> TensorData:
     """Load a torchvision dataset (one of :data:`EXPECTED_FILES`) from ``root``.
 
@@ -51,28 +56,43 @@ def load_torchvision(
     ----------
     name : torchvision class name, e.g. "CIFAR10".
     root : the folder passed to torchvision as ``root`` (see :data:`EXPECTED_FILES`).
-    max_train, max_test : keep at most this many examples of each split, drawn once with
-        ``subsample_seed`` (same subset for every training seed), in original order.
+    n_train, n_test : keep at most this many examples of each split (None: all), drawn once
+        with ``subsample_seed`` (same subset for every training seed), in original order.
     grayscale : turn RGB into one luminance channel (ITU-R 601-2 weights, as PIL's "L").
+    max_train, max_test : the former names of ``n_train`` and ``n_test``; still accepted, with
+        a FutureWarning.
     """
     if name not in EXPECTED_FILES:
         raise bad_value("data.name", "one of " + ", ".join(EXPECTED_FILES), name)
     root = existing_path("data.root", root, folder=True)
-    max_train = check_optional_int("data.max_train", max_train, 2)
-    max_test = check_optional_int("data.max_test", max_test, 1)
+    n_train = _renamed("max_train", max_train, "n_train", n_train)
+    n_test = _renamed("max_test", max_test, "n_test", n_test)
+    n_train, n_test = check_caps(n_train, n_test)
     subsample_seed = check_int("data.subsample_seed", subsample_seed, 0)
 
     x_train, y_train, num_classes = _open(name, root, train=True)
     x_test, y_test, _ = _open(name, root, train=False)
-    keep = subsample(len(x_train), max_train, subsample_seed)
-    x_train, y_train = x_train[keep], y_train[keep]
-    keep = subsample(len(x_test), max_test, subsample_seed + 1)
-    x_test, y_test = x_test[keep], y_test[keep]
+    train, test = cap_split(
+        np.arange(len(x_train)), np.arange(len(x_test)), n_train, n_test, subsample_seed
+    )
+    x_train, y_train, x_test, y_test = x_train[train], y_train[train], x_test[test], y_test[test]
     x_train, x_test = (x.astype(np.float32) / 255.0 for x in (x_train, x_test))
     if grayscale and x_train.shape[1] == 3:
         x_train, x_test = to_gray(x_train), to_gray(x_test)
     x_train, x_test = standardize(x_train, x_test)
     return TensorData(x_train, y_train, x_test, y_test, num_classes=num_classes, name=name)
+
+
+def _renamed(old: str, old_value: int | None, new: str, value: int | None) -> int | None:
+    """The value of a renamed argument, given under either name (not both)."""
+    if old_value is None:
+        return value
+    if value is not None:
+        raise ConfigError(f"data.{old} and data.{new} are the same setting (data.{old} is its "
+                          f"former name); give only data.{new}")
+    warnings.warn(f"data.{old} is now called data.{new}; the old name will go in a later "
+                  f"release", FutureWarning, stacklevel=3)
+    return old_value
 
 
 def _open(name: str, root: str, train: bool) -> tuple[np.ndarray, np.ndarray, int]:
