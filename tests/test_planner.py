@@ -12,11 +12,11 @@ from scipy import stats
 from statsmodels.stats.multitest import multipletests
 from test_api import build_tiny_sweep
 
-from periodscan.analysis.sensitivity import sensitivity_table
+from periodscan.analysis.planner import check_question, choose_length, plan_from_table
+from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
 from periodscan.cli import main
 from periodscan.errors import ConfigError, SweepError
-from periodscan.planner import check_question, choose_length, plan_from_table
-from periodscan.terminal import format_plan
+from periodscan.views.plan import format_plan, plan_json, plan_notes
 
 EPOCHS = 30
 # Fixed per-seed damages (points) of a 30-epoch schedule: an early sensitive stretch that fades.
@@ -48,7 +48,8 @@ def runs_from_damage(damage: dict, base_acc: float = 0.9) -> pd.DataFrame:
 
 
 def table(tolerance: float = 0.5, confidence: float = 0.95) -> pd.DataFrame:
-    return sensitivity_table(runs_from_damage(DAMAGE), EPOCHS, confidence, tolerance=tolerance)
+    return sensitivity_table(runs_from_damage(DAMAGE), EPOCHS,
+                             TableOptions(confidence=confidence, tolerance=tolerance))
 
 
 def test_plan_names_critical_window_and_safe_slots():
@@ -73,7 +74,8 @@ def test_safe_from_needs_every_later_start_safe():
     damage = dict(DAMAGE)
     damage[(25, 5)] = [2.0, 1.1, 3.2, 0.9, 2.6]  # a late window that hurts again
     answer = plan_from_table(
-        sensitivity_table(runs_from_damage(damage), EPOCHS, tolerance=0.5), 5, EPOCHS)
+        sensitivity_table(runs_from_damage(damage), EPOCHS, TableOptions(tolerance=0.5)), 5,
+        EPOCHS)
     assert 25 not in answer.safe_starts and answer.safe_from is None
 
 
@@ -81,7 +83,8 @@ def test_unmeasured_length_answers_from_nearest_longer():
     answer = plan_from_table(table(), 7, EPOCHS)
     assert (answer.length_asked, answer.length_used, answer.length_measured) == (7, 10, False)
     assert [s.start for s in answer.starts] == [0, 10, 20]
-    assert "not measured" in answer.notes[0] and "10 epochs" in answer.notes[0]
+    notes = plan_notes(answer)
+    assert "not measured" in notes[0] and "10 epochs" in notes[0]
     assert choose_length(3, [5, 10]) == 5 and choose_length(5, [5, 10]) == 5
     with pytest.raises(SweepError, match="'length' parameter must be at most"):
         plan_from_table(table(), 12, EPOCHS)
@@ -92,7 +95,7 @@ def test_production_mapping_scales_by_fraction_of_training():
     assert [s.production_start for s in answer.starts] == [0, 15, 30, 45, 60, 75]
     assert [s.start_frac for s in answer.starts] == pytest.approx([0, 1 / 6, 1 / 3, 0.5,
                                                                     2 / 3, 5 / 6])
-    assert any("fraction of training" in n for n in answer.notes)
+    assert any("fraction of training" in n for n in plan_notes(answer))
     assert "production epoch 45" in format_plan(answer)
 
 
@@ -105,13 +108,13 @@ def test_a_stricter_tolerance_or_confidence_decides_less():
 
 def test_json_is_plain_and_complete():
     answer = plan_from_table(table(), 5, EPOCHS, production_epochs=60)
-    data = json.loads(answer.to_json())
+    data = json.loads(plan_json(answer))
     assert data["critical_starts"] == [0, 5] and data["safe_from"] == 15
     undetermined = [s for s in data["starts"] if s["verdict"] == "undetermined"][0]
     assert undetermined["more_seeds"] >= 1  # start 10: a finite count within the cap
     decided = [s for s in data["starts"] if s["verdict"] != "undetermined"][0]
     assert decided["more_seeds"] is None  # NaN becomes null, never the invalid token NaN
-    assert "NaN" not in answer.to_json()
+    assert "NaN" not in plan_json(answer)
 
 
 @pytest.mark.parametrize("field, args", [

@@ -15,8 +15,9 @@ from test_api import build_tiny_sweep
 
 from periodscan.api import load_sweep
 from periodscan.cli import main
-from periodscan.report.figures import fisher_by_epoch, pick_windows
-from periodscan.sweep import prepare
+from periodscan.analysis.readings import fisher_by_epoch
+from periodscan.jobs.prepare import prepare
+from periodscan.views.figures import pick_windows
 
 
 @pytest.fixture(scope="module")
@@ -85,7 +86,7 @@ def test_fisher_panel_when_the_ledger_has_readings(copy):
     _fake_fisher(copy)
     with load_sweep(copy) as view:
         extras = view.extras
-        fisher = fisher_by_epoch(extras, view.runs)
+        fisher = fisher_by_epoch(extras)
         files = view.report()
     # Mean across seeds per epoch of fisher/total on the baselines (reading after epoch e sits
     # at e + 1 epochs completed); the invented readings are 10 exp(-e/3) + seed, seeds 0..2.

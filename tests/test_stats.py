@@ -18,7 +18,7 @@ from periodscan.analysis.mcnemar import (
     mcnemar_test,
     unpack_correct,
 )
-from periodscan.analysis.sensitivity import sensitivity_table
+from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
 from periodscan.analysis.stats import (
     BOOTSTRAP_MIN_SEEDS,
     bootstrap_interval,
@@ -343,7 +343,7 @@ def _runs():
 
 
 def test_table_counts_diverged_failed_and_unpaired_runs():
-    table = sensitivity_table(_runs(), 10, 0.95, tolerance=0.5)
+    table = sensitivity_table(_runs(), 10, TableOptions(confidence=0.95, tolerance=0.5))
     w0 = table[table.start == 0].iloc[0]
     w4 = table[table.start == 4].iloc[0]
     # Window 0: seeds 0 (done) and 1 (diverged, counted) are paired; seed 2 lacks a baseline.
@@ -366,7 +366,7 @@ def test_table_bootstraps_from_ten_seeds_and_floors_a_zero_spread():
     runs = pd.DataFrame(rows, columns=["run_id", "seed", "start_epoch", "length", "is_baseline",
                                        "test_acc"]).assign(end_epoch=10, status="done",
                                                            n_test=1000)
-    table = sensitivity_table(runs, 10, 0.95)
+    table = sensitivity_table(runs, 10, TableOptions(confidence=0.95))
     boot = table[table.start == 2].iloc[0]
     # Reference: scipy.stats.bootstrap (BCa) on the per-seed damages, same seed as ours (0).
     damage = (base - (base - loss)) * 100  # as the table computes it, rounding included

@@ -13,7 +13,7 @@ from test_api import build_tiny_sweep
 
 from periodscan.api import load_sweep
 from periodscan.cli import main
-from periodscan.sweep import prepare
+from periodscan.jobs.prepare import prepare
 
 
 @pytest.fixture(scope="module")

@@ -98,13 +98,3 @@ def _pooled_sd(sds: list[float], ns: list[int]) -> float:
         return math.nan
     return math.sqrt(sum((n - 1) * s * s for s, n in zip(sds, ns, strict=True)) / dof)
 
-
-def describe_more_seeds(extra: float) -> str:
-    """Human phrasing of a :func:`seeds_to_settle` answer."""
-    from periodscan.analysis.stats import SETTLE_CAP
-
-    if extra is None or (isinstance(extra, float) and math.isnan(extra)):
-        return "unknown (no spread measured yet)"
-    if math.isinf(extra):
-        return f"more than {SETTLE_CAP} seeds in total"
-    return f"about {int(extra)} more seed{'s' if int(extra) != 1 else ''}"

@@ -13,19 +13,26 @@ schedule by their fraction of training, which assumes sensitivity scales with th
 
 from __future__ import annotations
 
-import json
 import math
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import pandas as pd
 
-from periodscan.analysis.stats import SETTLE_CAP
-from periodscan.analysis.verdicts import CRITICAL, SAFE, describe_more_seeds
+from periodscan.analysis.verdicts import CRITICAL, SAFE
 from periodscan.errors import SweepError, bad_value
 
-PROXY_CAVEAT = ("Damage measured on a small proxy model is evidence, not a guarantee, for a "
-                "production model: confirm on the real pipeline before relying on it.")
+#: Codes of the facts a plan carries beside its numbers (phrased by periodscan.views.plan).
+LENGTH_SUBSTITUTED = "length_substituted"  # answered from a longer measured length
+SHORT_RECOVERY = "short_recovery"  # starts: little clean training after the deficit
+PRODUCTION_MAPPING = "production_mapping"  # starts mapped onto a longer schedule
+FIXED_RECOVERY = "fixed_recovery"  # count: clean epochs after each window (the budget)
+RUNS_LOST = "runs_lost"  # count: failed or unfinished window runs, not in the means
+RUNS_DIVERGED = "runs_diverged"  # count: diverged or at chance, counted in the means
+SCREENED = "screened"  # starts: measured on their first seeds only, not confirmed
+UNDETERMINED = "undetermined"  # count: open starts; seeds: extra seeds to settle them all
+METHOD = "method"  # count: Holm family size when padded beyond the measured starts
+PROXY = "proxy"  # the proxy-model caveat
 
 
 @dataclass
@@ -51,9 +58,22 @@ class StartAnswer:
     confirmed: bool = True  # False: an adaptive design screened it on its first seeds
 
 
+@dataclass(frozen=True)
+class Fact:
+    """Something a reader of the answer must be told, as data; :mod:`periodscan.views.plan`
+    phrases it. ``code`` is one of this module's fact codes; ``starts``, ``count`` and
+    ``seeds`` carry its numbers where it has any."""
+
+    code: str
+    starts: tuple[int, ...] = ()
+    count: int | None = None
+    seeds: float | None = None
+
+
 @dataclass
 class PlanAnswer:
-    """The planner's answer; ``to_dict`` / ``to_json`` for scripts, ``frame`` for notebooks."""
+    """The planner's answer; ``frame`` for notebooks, ``periodscan.views.plan`` for words and
+    JSON. ``facts`` lists what must be said beside the numbers."""
 
     sweep: str
     length_asked: int
@@ -71,19 +91,11 @@ class PlanAnswer:
     safe_from: int | None
     best: StartAnswer | None
     best_is_safe: bool
-    notes: list[str] = field(default_factory=list)
+    facts: list[Fact] = field(default_factory=list)
 
     def frame(self) -> pd.DataFrame:
         """One row per measured start."""
         return pd.DataFrame([asdict(s) for s in self.starts])
-
-    def to_dict(self) -> dict[str, Any]:
-        """Plain JSON-ready dict: NaN becomes None, and a seed count beyond the search cap the
-        string ``"more than 200"`` (see ``periodscan.analysis.stats.SETTLE_CAP``)."""
-        return _json_ready(asdict(self))
-
-    def to_json(self, indent: int | None = 2) -> str:
-        return json.dumps(self.to_dict(), indent=indent)
 
     def critical_stretches(self) -> list[list[int]]:
         """Critical starts grouped into runs of neighbouring measured starts."""
@@ -106,21 +118,6 @@ class PlanAnswer:
         if self.production_epochs is None:
             return None
         return epoch * self.production_epochs / self.schedule_epochs
-
-
-def _json_ready(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {k: _json_ready(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_ready(v) for v in value]
-    if isinstance(value, float):
-        if math.isnan(value):
-            return None
-        if math.isinf(value):
-            return f"more than {SETTLE_CAP}"
-    if hasattr(value, "item"):  # numpy scalars
-        return _json_ready(value.item())
-    return value
 
 
 def check_question(length: Any, tolerance: Any, confidence: Any,
@@ -197,60 +194,35 @@ def plan_from_table(table: pd.DataFrame, length: int, schedule_epochs: int,
     answer = PlanAnswer(sweep, length, used, used == length, measured, tolerance, confidence,
                         schedule_epochs, production_epochs, starts, safe, critical, undetermined,
                         safe_from, best, bool(safe_rows))
-    answer.notes = _notes(answer, budget, recovery_epochs, holm_family)
+    answer.facts = plan_facts(answer, budget, recovery_epochs, holm_family)
     return answer
 
 
-def _notes(a: PlanAnswer, budget: str, recovery_epochs: int | None,
-           holm_family: int | None = None) -> list[str]:
-    notes = []
+def plan_facts(a: PlanAnswer, budget: str, recovery_epochs: int | None,
+               holm_family: int | None = None) -> list[Fact]:
+    """What a reader must know beside the verdicts, in the order it is best told."""
+    facts = []
     if not a.length_measured:
-        last = a.starts[-1].start if a.starts else 0
-        notes.append(
-            f"A {a.length_asked}-epoch deficit was not measured; this answer uses the nearest "
-            f"longer measured length, {a.length_used} epochs, assuming a longer deficit at the "
-            f"same start does at least as much damage (conservative). Starts after epoch {last} "
-            f"were not measured for it.")
-    short = [s.start for s in a.starts if s.short_recovery]
+        facts.append(Fact(LENGTH_SUBSTITUTED, starts=(a.starts[-1].start if a.starts else 0,)))
+    short = tuple(s.start for s in a.starts if s.short_recovery)
     if short:
-        notes.append(f"Start(s) {', '.join(map(str, short))} leave little clean training after "
-                     "the deficit: their damage is partly a model that has not yet recovered, "
-                     "which still matters if training is not extended.")
+        facts.append(Fact(SHORT_RECOVERY, starts=short))
     if a.production_epochs is not None:
-        notes.append(
-            f"Production mapping: epoch e of this {a.schedule_epochs}-epoch proxy is shown as "
-            f"epoch e x {a.production_epochs}/{a.schedule_epochs} of the production schedule, "
-            f"and the {a.length_used}-epoch window as "
-            f"{a.length_used * a.production_epochs / a.schedule_epochs:g} production epochs. "
-            "This assumes sensitivity scales with the fraction of training completed.")
+        facts.append(Fact(PRODUCTION_MAPPING))
     if budget == "fixed_recovery":
-        notes.append(f"Damage was measured after {recovery_epochs} clean epochs following each "
-                     "window (fixed_recovery budget), not at the end of the schedule.")
+        facts.append(Fact(FIXED_RECOVERY, count=recovery_epochs))
     lost = sum(s.failed + s.unfinished for s in a.starts)
     if lost:
-        notes.append(f"{lost} window run(s) failed or are unfinished; they are not in the "
-                     "means and the seeds column shows what each answer rests on.")
+        facts.append(Fact(RUNS_LOST, count=lost))
     diverged = sum(s.diverged for s in a.starts)
     if diverged:
-        notes.append(f"{diverged} window run(s) diverged; their final accuracy counts as damage.")
-    screened = [s.start for s in a.starts if not s.confirmed]
+        facts.append(Fact(RUNS_DIVERGED, count=diverged))
+    screened = tuple(s.start for s in a.starts if not s.confirmed)
     if screened:
-        notes.append(f"Adaptive design: start(s) {', '.join(map(str, screened))} were screened "
-                     "on their first seeds (their mean told the search which way to go) and "
-                     "are not confirmed; only starts measured at the seed cap get verdicts, so "
-                     "no data-dependent stopping enters a verdict. Starts between measured ones "
-                     "are assumed to follow the measured trend.")
+        facts.append(Fact(SCREENED, starts=screened))
     open_rows = [s for s in a.starts if s.verdict not in (SAFE, CRITICAL) and s.confirmed]
     if open_rows:
         worst = max((s.more_seeds for s in open_rows if not math.isnan(s.more_seeds)),
                     default=math.nan)
-        notes.append(f"{len(open_rows)} start(s) undetermined at this tolerance; settling all of "
-                     f"them would likely take {describe_more_seeds(worst)}.")
-    family = ("over the starts of this length" if holm_family is None else
-              f"over all {holm_family} candidate starts of the adaptive grid (unmeasured ones "
-              "count with p = 1)")
-    notes.append(f"Verdicts: paired t test of mean damage against the tolerance, Holm-corrected "
-                 f"{family}; safe = upper bound below tolerance, critical = lower bound above "
-                 "it. Only measured starts are judged; starts in between are not.")
-    notes.append(PROXY_CAVEAT)
-    return notes
+        facts.append(Fact(UNDETERMINED, count=len(open_rows), seeds=worst))
+    return [*facts, Fact(METHOD, count=holm_family), Fact(PROXY)]

@@ -11,7 +11,6 @@ from __future__ import annotations
 import json
 import os
 import socket
-import time
 from dataclasses import dataclass, field
 
 import pandas as pd
@@ -38,7 +37,7 @@ class SweepStatus:
     eta_seconds: float | None
     failures: list[tuple[str, str]] = field(default_factory=list)  # (run id, error line)
     owner: str | None = None
-    last_update: float | None = None
+    last_update: float | None = None  # Unix seconds of the latest finished segment
 
     @property
     def runs_done(self) -> int:
@@ -88,9 +87,7 @@ def remaining_segments(runs: pd.DataFrame, segments: pd.DataFrame) -> tuple[set[
 
 def sweep_status(view) -> SweepStatus:
     """Status of the sweep behind a :class:`periodscan.api.SweepView`."""
-    runs = view.ledger.conn.execute(
-        "SELECT run_id, status, path, error FROM runs").fetchall()
-    runs = pd.DataFrame(runs, columns=["run_id", "status", "path", "error"])
+    runs = view.ledger.run_paths_frame()
     if view.run_ids is not None:
         runs = runs[runs.run_id.isin(view.run_ids)]
     segments = view.segments
@@ -98,7 +95,7 @@ def sweep_status(view) -> SweepStatus:
     segments = segments[segments.segment_id.isin(wanted)]
     spans = (segments.end_epoch - segments.begin_epoch).set_axis(segments.segment_id)
     pending, failed = remaining_segments(runs, segments)
-    epochs = pd.read_sql_query("SELECT segment_id, seconds FROM epochs", view.ledger.conn)
+    epochs = view.ledger.epoch_seconds_frame()
     trained = set(segments.segment_id[segments.status.isin(FINAL)])
     epochs = epochs[epochs.segment_id.isin(trained)]
     left = int(spans[list(pending)].sum()) if pending else 0
@@ -128,17 +125,3 @@ def sweep_status(view) -> SweepStatus:
         eta_seconds=eta if left else 0.0, failures=failures, owner=owner,
         last_update=None if last is None or pd.isna(last) else float(last))
 
-
-def age(seconds_since_epoch: float | None) -> str:
-    """'3 min ago' style phrase for a timestamp."""
-    if seconds_since_epoch is None:
-        return "never"
-    return f"{human_seconds(max(time.time() - seconds_since_epoch, 0))} ago"
-
-
-def human_seconds(seconds: float) -> str:
-    if seconds < 90:
-        return f"{seconds:.0f} s"
-    if seconds < 5400:
-        return f"{seconds / 60:.1f} min"
-    return f"{seconds / 3600:.1f} h"
