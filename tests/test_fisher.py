@@ -27,12 +27,15 @@ from periodscan.config import compose_config, to_plain
 from periodscan.data.digits import load_digits as load_digits_data
 from periodscan.data.mnist1d import load_mnist1d
 from periodscan.errors import ConfigError
-from periodscan.fisher import TOTAL, FisherMonitor, fisher_trace, layerwise, probe_indices
+from periodscan.fisher import TOTAL, layerwise
+from periodscan.fisher.trace import fisher_trace
+from periodscan.jobs.sweep import run_sweep
 from periodscan.ledger import Ledger
 from periodscan.models import MLP, CNN1d, CNN2d, TinyResNet
-from periodscan.sweep import run_sweep
+from periodscan.monitors import FisherMonitor, Monitor
+from periodscan.monitors.fisher import probe_indices
 
-FISHER = {"_target_": "periodscan.fisher.FisherMonitor", "probe_size": 64}
+FISHER = {"_target_": "periodscan.monitors.FisherMonitor", "probe_size": 64}
 
 
 # --- closed forms on multinomial logistic regression ------------------------------------------
@@ -271,7 +274,7 @@ def test_monitor_readings_names_and_schedule(signals):
     assert set(readings) == {TOTAL, "fisher/features.0", "fisher/features.2",
                              "fisher/features.4", "fisher/head"}
     assert readings[TOTAL] == pytest.approx(sum(v for k, v in readings.items() if k != TOTAL))
-    assert monitor(model, data, seed=0, epoch=4) == {}
+    assert isinstance(monitor, Monitor) and monitor.every == 3 and monitor.on_windows is False
     # The probe is fixed per seed, drawn without replacement, and differs between seeds.
     probe = probe_indices(0, len(y), 40)
     assert torch.equal(probe, probe_indices(0, len(y), 40))

@@ -23,6 +23,7 @@ from periodscan.engine import checkpoint
 from periodscan.engine.records import EpochRecord, SegmentJob, SegmentResult
 from periodscan.engine.schedule import build_optimizer
 from periodscan.engine.training import evaluate, prepare_deficit, train_epoch
+from periodscan.monitors import build_monitor
 from periodscan.seeding import ONCE, derive_seed
 
 _DATA_CACHE: dict[str, TensorData] = {}
@@ -69,7 +70,7 @@ def _train(job: SegmentJob) -> SegmentResult:
     deficit = _deficit(config, data, job.seed) if job.deficit_on else None
 
     result = SegmentResult(segment_id=job.segment_id)
-    probe = _monitor(job.monitor, data, job.seed, result.extras)
+    probe = _probe(job.monitor, data, job.seed, result.extras)
     result.epochs, final, result.diverged_at = train_epochs(
         model, optimizer, data, config["schedule"], job.seed, range(job.begin, job.end),
         lambda epoch: deficit, after_epoch=probe,
@@ -89,21 +90,21 @@ def _deficit(config: dict[str, Any], data: TensorData, seed: int) -> Deficit:
     return deficit
 
 
-def _monitor(settings: dict[str, Any] | None, data: TensorData, seed: int,
-             sink: list[tuple[int, str, float]]) -> Callable[[torch.nn.Module, int], None] | None:
-    """Build the per-epoch probe from config; its readings go to ``sink``.
+def _probe(settings: dict[str, Any] | None, data: TensorData, seed: int,
+           sink: list[tuple[int, str, float]]) -> Callable[[torch.nn.Module, int], None] | None:
+    """The job's monitor as a per-epoch probe; readings go to ``sink`` as (epoch, name, value).
 
-    A monitor is any object built by ``_target_`` and called as
-    ``monitor(model, data, seed, epoch) -> dict[str, float]`` after an epoch's evaluation. It
-    must draw randomness only from its own generators and leave the model's mode to the loop.
+    The probe calls the monitor on the epochs its ``every`` selects; the contract a monitor
+    keeps is on :class:`periodscan.monitors.Monitor`.
     """
-    if not settings or not settings.get("_target_"):
+    monitor = build_monitor(settings)
+    if monitor is None:
         return None
-    monitor = instantiate(settings)
 
     def probe(model: torch.nn.Module, epoch: int) -> None:
-        for name, value in monitor(model, data, seed, epoch).items():
-            sink.append((epoch, name, float(value)))
+        if epoch % monitor.every == 0:
+            for name, value in monitor(model, data, seed, epoch).items():
+                sink.append((epoch, name, float(value)))
 
     return probe
 

@@ -1,11 +1,15 @@
-"""Fisher information of the weights during training, and a forecast of the critical window.
+"""Fisher information of the weights during training: the math, the forecast rule, the job.
 
-``FisherMonitor`` is the per-epoch probe the engine runs on the clean trunk (``monitor=fisher``);
-``fisher_trace`` is the same computation as a plain function.
+:mod:`periodscan.fisher.trace` computes the trace (per layer) and
+:mod:`periodscan.fisher.layerwise` its fast per-example route; :mod:`periodscan.fisher.rule`
+turns a curve of traces into a predicted critical window. The per-epoch probe that records the
+trace during a sweep is :class:`periodscan.monitors.FisherMonitor` (``monitor=fisher``).
+
+This package module imports nothing heavy: readers of stored readings need only the names.
 """
 
-from periodscan.fisher.monitor import PREFIX, TOTAL, FisherMonitor, probe_indices
-from periodscan.fisher.trace import ESTIMATORS, METHODS, fisher_trace
+#: The Fisher monitor stores its readings as ``PREFIX + "total"`` and ``PREFIX + <module name>``.
+PREFIX = "fisher/"
+TOTAL = PREFIX + "total"
 
-__all__ = ["ESTIMATORS", "METHODS", "PREFIX", "TOTAL", "FisherMonitor", "fisher_trace",
-           "probe_indices"]
+__all__ = ["PREFIX", "TOTAL"]

@@ -1,9 +1,9 @@
-"""The per-epoch Fisher monitor the engine runs on the clean trunk (``monitor=fisher``).
+"""The Fisher monitor (``monitor=fisher``): the trace of the Fisher information, every epoch.
 
-The engine calls a monitor after every epoch's held-out evaluation (see
-``periodscan/engine/segment.py``); this one records the trace of the Fisher information of the
-weights on a fixed probe set of clean training examples, per layer and in total. The forecast
-of the critical window is built on these readings.
+It records the trace of the Fisher information of the weights on a fixed probe set of clean
+training examples, per layer and in total, after the epochs the engine calls it on. The math
+is in :mod:`periodscan.fisher.trace`; the forecast of the critical window built on these
+readings is the ``forecast`` job's.
 """
 
 from __future__ import annotations
@@ -12,12 +12,12 @@ import torch
 
 from periodscan.data.base import TensorData
 from periodscan.errors import bad_value
+from periodscan.fisher import PREFIX, TOTAL
 from periodscan.fisher.trace import ESTIMATORS, METHODS, fisher_trace
+from periodscan.monitors.base import Monitor
 from periodscan.seeding import ONCE, generator
 
-#: Readings are stored as ``PREFIX + "total"`` and ``PREFIX + <module name>``.
-PREFIX = "fisher/"
-TOTAL = PREFIX + "total"
+__all__ = ["PREFIX", "TOTAL", "FisherMonitor", "probe_indices"]
 
 
 def probe_indices(seed: int, n_train: int, size: int) -> torch.Tensor:
@@ -26,14 +26,13 @@ def probe_indices(seed: int, n_train: int, size: int) -> torch.Tensor:
     return order[: min(size, n_train)].sort().values
 
 
-class FisherMonitor:
+class FisherMonitor(Monitor):
     """Per-epoch trace of the Fisher information on a fixed probe of clean training examples.
 
-    Called by the engine as ``monitor(model, data, seed, epoch)``; returns
-    ``{"fisher/total": ..., "fisher/<module>": ...}`` where ``<module>`` is the dotted name of
-    each module that owns parameters (for CNN1d: ``fisher/features.0``, ``features.2``,
-    ``features.4``, ``head``; BatchNorm's affine weights count as a layer of their own). The
-    probe uses the clean training data even on deficit runs.
+    Returns ``{"fisher/total": ..., "fisher/<module>": ...}`` where ``<module>`` is the dotted
+    name of each module that owns parameters (for CNN1d: ``fisher/features.0``,
+    ``features.2``, ``features.4``, ``head``; BatchNorm's affine weights count as a layer of
+    their own). The probe uses the clean training data even on deficit runs.
 
     Training is unchanged by the monitor: the probe is chosen by a generator keyed by
     (seed, "fisher-probe"), sampled labels come from one keyed by (seed, epoch, "fisher"), the
@@ -50,18 +49,19 @@ class FisherMonitor:
     samples : int
         Labels drawn per probe example by ``"sampled"``.
     every : int
-        Probe after epochs 0, every, 2*every, ...; other epochs record nothing.
+        The engine probes after epochs 0, every, 2*every, ... (see :class:`Monitor`).
     method : {"auto", "layerwise", "vmap"}
         Route for per-example gradients; ``auto`` picks the faster one the model allows.
     chunk_size : int
         Examples per vectorised chunk (bounds memory).
     on_windows : bool
-        Also probe segments trained with or after a deficit (read by the engine).
+        Also probe segments trained with or after a deficit (see :class:`Monitor`).
     """
 
     def __init__(self, probe_size: int = 256, estimator: str = "empirical", samples: int = 1,
                  every: int = 1, method: str = "auto", chunk_size: int = 256,
                  on_windows: bool = False) -> None:
+        super().__init__(every=every, on_windows=on_windows)
         self.probe_size = _positive_int("monitor.probe_size", probe_size)
         if estimator not in ESTIMATORS:
             raise bad_value("monitor.estimator", f"one of {', '.join(map(repr, ESTIMATORS))}",
@@ -71,17 +71,11 @@ class FisherMonitor:
         self.estimator = estimator
         self.method = method
         self.samples = _positive_int("monitor.samples", samples)
-        self.every = _positive_int("monitor.every", every)
         self.chunk_size = _positive_int("monitor.chunk_size", chunk_size)
-        if not isinstance(on_windows, bool):
-            raise bad_value("monitor.on_windows", "a bool (true or false)", on_windows)
-        self.on_windows = on_windows
         self._probes: dict[tuple[int, int], torch.Tensor] = {}
 
     def __call__(self, model: torch.nn.Module, data: TensorData, seed: int,
                  epoch: int) -> dict[str, float]:
-        if epoch % self.every:
-            return {}
         key = (seed, len(data.y_train))
         if key not in self._probes:
             self._probes[key] = probe_indices(seed, len(data.y_train), self.probe_size)
