@@ -13,9 +13,9 @@ import yaml
 from PIL import Image
 from test_api import build_tiny_sweep
 
+from periodscan.analysis.readings import fisher_by_epoch
 from periodscan.api import load_sweep
 from periodscan.cli import main
-from periodscan.analysis.readings import fisher_by_epoch
 from periodscan.jobs.prepare import prepare
 from periodscan.views.figures import pick_windows
 

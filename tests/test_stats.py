@@ -11,6 +11,7 @@ from scipy import stats
 from statsmodels.stats.contingency_tables import mcnemar as sm_mcnemar
 from statsmodels.stats.multitest import multipletests
 
+from periodscan.analysis.chance import at_chance, chance_pvalues
 from periodscan.analysis.mcnemar import (
     EXACT_BELOW,
     mcnemar_counts,
@@ -380,3 +381,51 @@ def test_table_bootstraps_from_ten_seeds_and_floors_a_zero_spread():
     half = stats.t.ppf(0.975, 2) * 0.1 / math.sqrt(3)
     assert flat.interval == "t, sd floor"
     assert (flat.damage_low, flat.damage_high) == pytest.approx((0.2 - half, 0.2 + half))
+
+
+# --- runs at chance level ----------------------------------------------------------------------
+
+@pytest.mark.parametrize("n, classes", [(300, 10), (1000, 10), (50, 2), (97, 7)])
+def test_chance_pvalue_matches_scipy_binomtest(n, classes):
+    # Reference: scipy.stats.binomtest(k, n, 1 / classes, alternative="greater").pvalue.
+    correct = np.arange(0, n + 1, max(1, n // 40))
+    ours = chance_pvalues(correct / n, np.full(len(correct), n), classes)
+    ref = [stats.binomtest(int(k), n, 1 / classes, alternative="greater").pvalue
+           for k in correct]
+    assert ours == pytest.approx(ref, rel=1e-9, abs=1e-300)
+    assert math.isnan(chance_pvalues([np.nan], [n], classes)[0])
+    assert math.isnan(chance_pvalues([0.5], [0], classes)[0])
+
+
+def test_at_chance_flags_finished_runs_the_test_cannot_tell_from_guessing():
+    runs = pd.DataFrame({
+        "status": ["done", "done", "done", "diverged", "failed", "done"],
+        "test_acc": [0.10, 0.115, 0.14, 0.10, None, 0.11],
+        "n_test": [1000, 1000, 1000, 1000, 1000, None]})
+    flags = at_chance(runs, 10, 0.95)
+    # 100 and 115 of 1000 correct: one-sided p = 0.52 and 0.065 (> 0.05, scipy's binomtest);
+    # 140 of 1000: p = 3.6e-5. Diverged and failed runs are not this check's business, and a run
+    # without a test-set size cannot be tested.
+    assert list(flags) == [True, True, False, False, False, False]
+    assert stats.binomtest(115, 1000, 0.1, alternative="greater").pvalue > 0.05
+    assert stats.binomtest(140, 1000, 0.1, alternative="greater").pvalue < 0.05
+    assert not at_chance(runs, None, 0.95).any()
+
+
+def test_table_counts_runs_at_chance_with_the_diverged_ones():
+    # Three seeds, 10 classes, 1000 test examples. Seed 2's baseline spiked and stayed at
+    # chance (10.3%); seed 1's window run ended at chance too (9.8%).
+    rows = []
+    for seed, base, run in ((0, 0.91, 0.88), (1, 0.90, 0.098), (2, 0.103, 0.87)):
+        rows += [(f"b{seed}", seed, 0, 0, 1, base), (f"w{seed}", seed, 2, 3, 0, run)]
+    runs = pd.DataFrame(rows, columns=["run_id", "seed", "start_epoch", "length",
+                                       "is_baseline", "test_acc"]).assign(
+        end_epoch=10, status="done", n_test=1000)
+    checked = sensitivity_table(runs, 10, TableOptions(num_classes=10)).iloc[0]
+    assert (checked.diverged, checked.baseline_diverged) == (1, 1)
+    unchecked = sensitivity_table(runs, 10, TableOptions()).iloc[0]
+    assert (unchecked.diverged, unchecked.baseline_diverged) == (0, 0)
+    # The flag only counts: the runs stay in the means with the accuracy they ended at.
+    for column in ("damage", "damage_low", "damage_high", "baseline_acc", "run_acc"):
+        assert checked[column] == unchecked[column]
+    assert checked.damage == pytest.approx(np.mean([3.0, 80.2, -76.7]))

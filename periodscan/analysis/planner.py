@@ -29,6 +29,7 @@ PRODUCTION_MAPPING = "production_mapping"  # starts mapped onto a longer schedul
 FIXED_RECOVERY = "fixed_recovery"  # count: clean epochs after each window (the budget)
 RUNS_LOST = "runs_lost"  # count: failed or unfinished window runs, not in the means
 RUNS_DIVERGED = "runs_diverged"  # count: diverged or at chance, counted in the means
+BASELINES_DIVERGED = "baselines_diverged"  # starts: compared with a baseline at chance/diverged
 SCREENED = "screened"  # starts: measured on their first seeds only, not confirmed
 UNDETERMINED = "undetermined"  # count: open starts; seeds: extra seeds to settle them all
 METHOD = "method"  # count: Holm family size when padded beyond the measured starts
@@ -52,7 +53,8 @@ class StartAnswer:
     more_seeds: float  # NaN when decided, inf when beyond the search cap
     recovery_epochs: int = 0
     short_recovery: bool = False
-    diverged: int = 0
+    diverged: int = 0  # window runs that diverged or ended at chance level
+    baseline_diverged: int = 0  # their baselines that did
     failed: int = 0
     unfinished: int = 0
     confirmed: bool = True  # False: an adaptive design screened it on its first seeds
@@ -177,7 +179,8 @@ def plan_from_table(table: pd.DataFrame, length: int, schedule_epochs: int,
         damage_high=float(r.damage_high), holm_low=float(r.holm_low),
         holm_high=float(r.holm_high), verdict=str(r.verdict), more_seeds=float(r.more_seeds),
         recovery_epochs=int(r.recovery_epochs), short_recovery=bool(r.short_recovery),
-        diverged=int(r.diverged), failed=int(r.failed), unfinished=int(r.unfinished),
+        diverged=int(r.diverged), baseline_diverged=int(r.baseline_diverged),
+        failed=int(r.failed), unfinished=int(r.unfinished),
         confirmed=bool(getattr(r, "confirmed", True)),
     ) for r in rows.itertuples()]
     safe = [s.start for s in starts if s.verdict == SAFE]
@@ -217,6 +220,9 @@ def plan_facts(a: PlanAnswer, budget: str, recovery_epochs: int | None,
     diverged = sum(s.diverged for s in a.starts)
     if diverged:
         facts.append(Fact(RUNS_DIVERGED, count=diverged))
+    shaky = tuple(s.start for s in a.starts if s.baseline_diverged)
+    if shaky:
+        facts.append(Fact(BASELINES_DIVERGED, starts=shaky))
     screened = tuple(s.start for s in a.starts if not s.confirmed)
     if screened:
         facts.append(Fact(SCREENED, starts=screened))

@@ -141,6 +141,9 @@ def fact_text(a: PlanAnswer, fact: Fact) -> str:
         facts.RUNS_DIVERGED: lambda: (
             f"{fact.count} window run(s) {DIVERGED_WORDS}; their final accuracy counts as "
             "damage."),
+        facts.BASELINES_DIVERGED: lambda: (
+            f"Start(s) {_starts(fact.starts)} are compared with baseline run(s) that "
+            f"{DIVERGED_WORDS}: their damage is measured against a broken baseline."),
         facts.SCREENED: lambda: (
             f"Start(s) {_starts(fact.starts)} were screened on their first seeds (their mean "
             "told the search which way to go) and are not confirmed; only starts measured at "
