@@ -121,11 +121,11 @@ def runs_html(status, table: pd.DataFrame) -> str:
 
 def method_html(table: pd.DataFrame, layout: Layout) -> str:
     """How the numbers were made, and the caveats."""
-    used = interval_summary(table) if len(table) else "intervals: none"
+    used = interval_summary(table).removeprefix("intervals: ") if len(table) else "none"
     return bullet_list([
         f"Intervals: Student-t for fewer than {BOOTSTRAP_MIN_SEEDS} seeds, BCa bootstrap "
-        f"(scipy.stats.bootstrap) from {BOOTSTRAP_MIN_SEEDS} on; here {used}. The seeds column "
-        "says how many seeds each number rests on.",
+        f"(scipy.stats.bootstrap) from {BOOTSTRAP_MIN_SEEDS} on; used here: {used}. The seeds "
+        "column says how many seeds each number rests on.",
         "Verdicts: for each window, a two-sided one-sample t test of the per-seed damages "
         f"against the tolerance; Holm's correction over {layout.family_words}. A window whose "
         "Holm-adjusted p-value clears the level is decided in the direction of its mean: "

@@ -170,9 +170,10 @@ def _method_text(holm_family: int | None) -> str:
     family = ("over the starts of this length" if holm_family is None else
               f"over all {holm_family} candidate starts of the design's grid (unmeasured ones "
               "count with p = 1)")
-    return (f"Verdicts: paired t test of mean damage against the tolerance, Holm-corrected "
-            f"{family}; safe = upper bound below tolerance, critical = lower bound above it. "
-            "Only measured starts are judged; starts in between are not.")
+    return (f"Verdicts: two-sided paired t test of mean damage against the tolerance, "
+            f"Holm-corrected {family}; a start it rejects is decided in the direction of its "
+            "mean: safe = Holm upper bound below the tolerance, critical = Holm lower bound "
+            "above it. Only measured starts are judged; starts in between are not.")
 
 
 def plan_notes(a: PlanAnswer, *, skip: tuple[str, ...] = ()) -> list[str]:
