@@ -19,7 +19,7 @@ from periodscan.analysis.planner import PlanAnswer
 from periodscan.designs.layout import Layout
 from periodscan.views.html_results import answer_html, method_html, runs_html, table_html
 from periodscan.views.markup import escape
-from periodscan.views.words import PROXY_CAVEAT, dataset_name
+from periodscan.views.words import PROXY_CAVEAT, dataset_name, short_name
 
 STYLE = """
 body{font-family:"DejaVu Sans",Helvetica,Arial,sans-serif;color:#22262a;background:#f4f2ec;
@@ -76,10 +76,6 @@ class PageInput:
     finished: bool = True
 
 
-def _short(target) -> str:
-    return str(target or "?").rsplit(".", 1)[-1]
-
-
 def _params(node: dict) -> str:
     items = [f"{k}={v}" for k, v in (node or {}).items() if k != "_target_" and v is not None]
     return ", ".join(items)
@@ -89,7 +85,7 @@ def config_rows(config: dict, design_summary: str) -> list[tuple[str, str]]:
     """(label, text) rows of the config table: components, schedule, design, statistics."""
     sched = config.get("schedule") or {}
     opt = sched.get("optimizer") or {}
-    rows = [(group, f"{_short((config.get(group) or {}).get('_target_'))} "
+    rows = [(group, f"{short_name((config.get(group) or {}).get('_target_'))} "
                     f"({_params(config.get(group) or {})})")
             for group in ("deficit", "data", "model")]
     rows.append(("schedule", f"{sched.get('epochs')} epochs, batch {sched.get('batch_size')}, "
@@ -110,7 +106,7 @@ def config_rows(config: dict, design_summary: str) -> list[tuple[str, str]]:
 def header_html(page: PageInput) -> str:
     """Title, the question the sweep asks, the proxy caveat, and a warning if partial."""
     view, config = page.view, page.view.config
-    deficit = _short((config.get("deficit") or {}).get("_target_"))
+    deficit = short_name((config.get("deficit") or {}).get("_target_"))
     data = dataset_name(config.get("data") or {})
     parts = [f"<h1>periodscan report: {escape(view.name)}</h1>",
              f"<p class='sub'>{escape(page.title)} &middot; written "

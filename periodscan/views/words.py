@@ -71,7 +71,8 @@ def more_seeds_phrase(extra: float | None) -> str:
     return f"about {int(extra)} more seed{'s' if int(extra) != 1 else ''}"
 
 
-def _short(target: Any) -> str:
+def short_name(target: Any) -> str:
+    """The last part of a dotted ``_target_``: 'periodscan.deficits.Blur' -> 'Blur'."""
     return str(target or "?").rsplit(".", 1)[-1]
 
 
@@ -84,14 +85,14 @@ def dataset_name(data: dict[str, Any]) -> str:
     for key in ("path", "root"):
         if data.get(key):
             return PurePath(str(data[key])).stem or str(data[key])
-    loader = _short(data.get("_target_"))
+    loader = short_name(data.get("_target_"))
     return loader.removeprefix("load_") or loader
 
 
 def sweep_title(config: dict[str, Any]) -> str:
     """"Blur on mnist1d / CNN1d, sweep 'demo'" from a sweep's resolved config."""
-    deficit = _short((config.get("deficit") or {}).get("_target_"))
-    model = _short((config.get("model") or {}).get("_target_"))
+    deficit = short_name((config.get("deficit") or {}).get("_target_"))
+    model = short_name((config.get("model") or {}).get("_target_"))
     title = f"{deficit} on {dataset_name(config.get('data') or {})} / {model}"
     return title + (f", sweep '{config['name']}'" if config.get("name") else "")
 
