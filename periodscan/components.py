@@ -1,4 +1,4 @@
-"""Build data, model and deficit from config once in the main process, to fail early.
+"""Build data, model, deficit and monitor from config once in the main process, to fail early.
 
 Everything a worker will build later is built here first, so a bad ``_target_``, a missing
 folder or a model whose output does not match the classes stops the sweep before the results
@@ -8,7 +8,8 @@ folder is touched, with one line that names the config group.
 from __future__ import annotations
 
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Collection
+from pathlib import Path
 from typing import Any
 
 import torch
@@ -20,9 +21,16 @@ from periodscan.deficits.base import Deficit
 from periodscan.engine.segment import build_model, load_data
 from periodscan.errors import ConfigError, PeriodscanError
 
+#: Keys the size presets (experiment=tiny) set on whatever data they are combined with.
+PRESET_DATA_KEYS = ("n_train", "n_test")
 
-def _unwrap(group: str, err: Exception) -> PeriodscanError:
-    """Hydra wraps errors raised by targets; surface ours, summarise the rest in one line."""
+
+def _unwrap(group: str, err: Exception, keys: Collection[str] = ()) -> PeriodscanError:
+    """Hydra wraps errors raised by targets; surface ours, summarise the rest in one line.
+
+    ``keys`` are the keys of the group's config, to name every size-preset key a user's loader
+    does not take, not only the first one Python reports.
+    """
     cause = err.__cause__ or err.__context__
     while cause is not None:
         if isinstance(cause, PeriodscanError):
@@ -32,10 +40,49 @@ def _unwrap(group: str, err: Exception) -> PeriodscanError:
     located = re.match(r"Error locating target '([^']+)'", text)
     if located:
         why = _last_line(err.__cause__) if err.__cause__ is not None else "not found"
-        return ConfigError(f"{group}._target_: cannot import '{located.group(1)}' ({why})")
+        return ConfigError(f"{group}._target_: cannot import '{located.group(1)}' ({why})"
+                           + _import_hint(located.group(1), err))
     if err.__cause__ is not None:
-        return ConfigError(f"{group}: {type(err.__cause__).__name__}: {_last_line(err.__cause__)}")
+        line = _last_line(err.__cause__)
+        unexpected = re.search(r"unexpected keyword argument '(\w+)'", line)
+        if group == "data" and unexpected and unexpected.group(1) in PRESET_DATA_KEYS:
+            return ConfigError(f"data: {line} ({_preset_hint(unexpected.group(1), keys)})")
+        return ConfigError(f"{group}: {type(err.__cause__).__name__}: {line}")
     return ConfigError(f"{group}: {text}")
+
+
+def _preset_hint(key: str, keys: Collection[str]) -> str:
+    """Where a size key the user's loader does not take came from, and the two ways out."""
+    named = [f"data.{k}" for k in PRESET_DATA_KEYS if k == key or k in keys]
+    drop = " ".join(f"~{k}" for k in named)
+    if len(named) == 1:
+        return (f"a size preset such as experiment=tiny sets {named[0]}; drop it with {drop} or "
+                f"give your loader that argument")
+    return (f"a size preset such as experiment=tiny sets {' and '.join(named)}; drop them with "
+            f"{drop} or give your loader those arguments")
+
+
+def _import_hint(target: str, err: BaseException) -> str:
+    """How to make ``target`` importable when its module is a file in the current folder.
+
+    Python looks in the current folder only when run as ``python -m`` or with it on
+    ``PYTHONPATH``; the ``periodscan`` command itself does not, so ``./my_models.py`` next to
+    the user is invisible to it (and to worker processes) unless they say so.
+    """
+    top = target.split(".")[0]
+    missing, link = set(), err
+    while link is not None:
+        if isinstance(link, ModuleNotFoundError):
+            missing.add(link.name)
+        link = link.__cause__ or link.__context__
+    here = Path.cwd()
+    found = [p for p in (here / f"{top}.py", here / top) if p.exists()]
+    if top not in missing or not found:
+        return ""
+    shown = f"./{found[0].name}" + ("/" if found[0].is_dir() else "")
+    return (f"; {shown} is in this folder but not on Python's import path: run with "
+            f"PYTHONPATH=. (e.g. PYTHONPATH=. periodscan sweep ...), or pip install -e the "
+            f"package it belongs to")
 
 
 def _last_line(err: BaseException) -> str:
@@ -47,16 +94,16 @@ def _last_line(err: BaseException) -> str:
     return match.group(2) if match else line
 
 
-def _build(group: str, build: Callable[[], Any]) -> Any:
+def _build(group: str, build: Callable[[], Any], keys: Collection[str] = ()) -> Any:
     try:
         return build()
     except InstantiationException as err:
-        raise _unwrap(group, err) from None
+        raise _unwrap(group, err, keys) from None
 
 
 def check_components(plain: dict[str, Any]) -> TensorData:
     """Instantiate every component, pass one batch through deficit and model; return the data."""
-    data = _build("data", lambda: load_data(plain["data"]))
+    data = _build("data", lambda: load_data(plain["data"]), keys=plain["data"])
     if not isinstance(data, TensorData):
         raise ConfigError(f"data: the loader must return periodscan.data.TensorData; got "
                           f"{type(data).__name__}")
@@ -64,6 +111,9 @@ def check_components(plain: dict[str, Any]) -> TensorData:
     if not isinstance(deficit, Deficit):
         raise ConfigError(f"deficit: the target must build a periodscan.deficits.Deficit; got "
                           f"{type(deficit).__name__}")
+    monitor = plain.get("monitor") or {}
+    if monitor.get("_target_"):
+        _build("monitor", lambda: instantiate(monitor))
     model = _build("model", lambda: build_model(plain, data, seed=0))
     if not isinstance(model, torch.nn.Module):
         raise ConfigError(f"model: the target must build a torch.nn.Module; got "
