@@ -65,9 +65,9 @@ def _preset_hint(key: str, keys: Collection[str]) -> str:
 def _import_hint(target: str, err: BaseException) -> str:
     """How to make ``target`` importable when its module is a file in the current folder.
 
-    Python looks in the current folder only when run as ``python -m`` or with it on
-    ``PYTHONPATH``; the ``periodscan`` command itself does not, so ``./my_models.py`` next to
-    the user is invisible to it (and to worker processes) unless they say so.
+    The ``periodscan`` command starts with its own folder on ``sys.path``, not the current one,
+    so ``./my_models.py`` next to the user is not found. ``PYTHONPATH=.`` fixes it for the
+    command and, through the environment, for local worker processes.
     """
     top = target.split(".")[0]
     missing, link = set(), err
