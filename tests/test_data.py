@@ -503,6 +503,17 @@ def test_npz_caps_apply_to_given_test_arrays(tmp_path):
     assert d.num_classes == 3
 
 
+def test_npz_num_classes_counts_labels_before_the_caps(tmp_path):
+    rng = np.random.default_rng(6)
+    np.savez(tmp_path / "d.npz", x_train=rng.standard_normal((20, 5)), y_train=np.arange(20) % 3,
+             x_test=rng.standard_normal((6, 5)), y_test=np.array([0, 3, 2, 0, 1, 2]))
+    keep = _documented_cap(6, 2, 1)
+    assert 1 not in keep  # the draw leaves out the only example of class 3
+    with pytest.warns(UserWarning, match="class 3"):
+        d = load_npz(str(tmp_path / "d.npz"), n_test=2)
+    assert d.num_classes == 4 and 3 not in d.y_test.tolist()
+
+
 def test_image_folder_caps_read_only_the_kept_images(tmp_path, monkeypatch):
     _write_tree(tmp_path / "img", sizes=((6, 5),) * 10)
     whole = load_image_folder(str(tmp_path / "img"), image_size=4, test_fraction=0.3)

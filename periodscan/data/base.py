@@ -42,8 +42,8 @@ class TensorData:
     def validate(self) -> None:
         """Raise DataError for anything that would make training meaningless.
 
-        A class in ``[0, num_classes)`` with no training example only warns: the model still
-        trains, but the class count is most likely not what the labels meant.
+        A class in ``[0, num_classes)`` with no training example only warns: the data is
+        usable as given, but the class count is most likely not what the labels meant.
         """
         splits = (("train", self.x_train, self.y_train), ("test", self.x_test, self.y_test))
         for part, x, y in splits:
