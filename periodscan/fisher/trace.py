@@ -84,31 +84,45 @@ def fisher_trace(
     dict mapping the name of each module that owns parameters to its part of the trace; the
     total trace is the sum of the values (a trace is additive over parameter blocks).
     """
+    _check_options(estimator, method, y)
+    was_training = model.training
+    model.eval()
+    try:
+        x = x.to(next(model.parameters()).dtype)
+        labels = _label_sets(model, x, y, estimator, samples, gen)
+        per_example = _squared_norms(model, x, labels, method, chunk_size)
+    finally:
+        model.train(was_training)
+    return {name: float(v.double().mean()) for name, v in per_example.items()}
+
+
+def _check_options(estimator: str, method: str, y: torch.Tensor | None) -> None:
     if estimator not in ESTIMATORS:
         raise bad_value("monitor.estimator", f"one of {_quoted(ESTIMATORS)}", estimator)
     if method not in METHODS:
         raise bad_value("monitor.method", f"one of {_quoted(METHODS)}", method)
     if estimator == "empirical" and y is None:
         raise ValueError("the empirical Fisher needs the observed labels y")
-    was_training = model.training
-    model.eval()
-    try:
-        x = x.to(next(model.parameters()).dtype)
-        labels = _label_sets(model, x, y, estimator, samples, gen)
-        per_example = None
-        if method != "vmap" and layerwise.supports(model):
-            per_example = _layerwise_in_chunks(model, x, labels, chunk_size or len(x))
-        if per_example is None:
-            if method == "layerwise":
-                raise ConfigError(
-                    f"The 'monitor.method' parameter must be 'auto' or 'vmap' for "
-                    f"{type(model).__name__}: it has layers the layer-wise route does not "
-                    f"handle (allowed: {', '.join(t.__name__ for t in layerwise.LAYERS)}, each "
-                    "called once). Got 'layerwise' instead.")
-            per_example = _vmap_squared_norms(model, x, labels, chunk_size)
-    finally:
-        model.train(was_training)
-    return {name: float(v.double().mean()) for name, v in per_example.items()}
+
+
+def _squared_norms(model, x, labels: LabelSets, method: str,
+                   chunk_size: int | None) -> dict[str, torch.Tensor]:
+    """Per-example weighted squared gradient norms by layer, by the route ``method`` names.
+
+    ``auto`` and ``layerwise`` try the layer-wise route first; ``auto`` falls back to vmap
+    for layers it does not handle, ``layerwise`` refuses such a model.
+    """
+    if method != "vmap" and layerwise.supports(model):
+        found = _layerwise_in_chunks(model, x, labels, chunk_size or len(x))
+        if found is not None:
+            return found
+    if method == "layerwise":
+        raise ConfigError(
+            f"The 'monitor.method' parameter must be 'auto' or 'vmap' for "
+            f"{type(model).__name__}: it has layers the layer-wise route does not "
+            f"handle (allowed: {', '.join(t.__name__ for t in layerwise.LAYERS)}, each "
+            "called once). Got 'layerwise' instead.")
+    return _vmap_squared_norms(model, x, labels, chunk_size)
 
 
 def _label_sets(model, x, y, estimator, samples, gen) -> LabelSets:
