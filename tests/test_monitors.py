@@ -15,7 +15,14 @@ from periodscan.engine.runner import monitored
 from periodscan.engine.segment import run_segment
 from periodscan.engine.tree import RunSpec, build_tree
 from periodscan.errors import ConfigError
-from periodscan.monitors import FisherMonitor, Monitor, build_monitor, check_monitor
+from periodscan.monitors import (
+    TOTAL,
+    FisherMonitor,
+    Monitor,
+    build_monitor,
+    check_monitor,
+    monitor_every,
+)
 
 
 class EpochCounter(Monitor):
@@ -88,6 +95,13 @@ def test_own_errors_and_schedule_are_checked():
     with pytest.raises(ConfigError, match=r"monitor\.on_windows"):
         build_monitor({"_target_": f"{HERE}.EpochCounter", "on_windows": "yes"})
     assert build_monitor(None) is None and build_monitor({}) is None
+
+
+def test_monitor_every_reads_the_built_monitor():
+    assert monitor_every({"_target_": "periodscan.monitors.FisherMonitor", "every": 4}) == 4
+    assert monitor_every({"_target_": f"{HERE}.EpochCounter"}) == 1  # the base class default
+    assert monitor_every({}) == 1
+    assert TOTAL == "fisher/total"
 
 
 def test_base_class_needs_a_call():

@@ -4,7 +4,14 @@ A user monitor subclasses :class:`Monitor` and is named in config with ``_target
 like the built-ins listed in ``configs/monitor/`` (``monitor=fisher``, ``monitor=none``).
 """
 
-from periodscan.monitors.base import Monitor, build_monitor, check_monitor, check_schedule
-from periodscan.monitors.fisher import FisherMonitor
+from periodscan.monitors.base import (
+    Monitor,
+    build_monitor,
+    check_monitor,
+    check_schedule,
+    monitor_every,
+)
+from periodscan.monitors.fisher import PREFIX, TOTAL, FisherMonitor
 
-__all__ = ["FisherMonitor", "Monitor", "build_monitor", "check_monitor", "check_schedule"]
+__all__ = ["PREFIX", "TOTAL", "FisherMonitor", "Monitor", "build_monitor", "check_monitor",
+           "check_schedule", "monitor_every"]

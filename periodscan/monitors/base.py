@@ -102,6 +102,12 @@ def build_monitor(settings: Mapping[str, Any] | None) -> Monitor | None:
     return monitor
 
 
+def monitor_every(settings: Mapping[str, Any] | None) -> int:
+    """The ``every`` of the monitor a config builds (its epochs 0, every, ...); 1 for none."""
+    monitor = build_monitor(settings)
+    return monitor.every if monitor is not None else 1
+
+
 def check_monitor(settings: Mapping[str, Any] | None) -> None:
     """Refuse a ``monitor`` config that does not build a valid :class:`Monitor` (see above)."""
     build_monitor(settings)
