@@ -10,7 +10,9 @@ from periodscan.engine.tree import RunSpec, baseline, build_tree
 
 
 def _window_runs(seed, epochs, starts, lengths):
-    return [RunSpec(seed, s, n, epochs) for s in starts for n in lengths] + [baseline(seed, epochs)]
+    windows = [RunSpec(seed=seed, start=s, length=n, end=epochs)
+               for s in starts for n in lengths]
+    return windows + [baseline(seed, epochs)]
 
 
 def test_one_dimensional_sweep_arithmetic():
@@ -34,7 +36,7 @@ def test_grid_arithmetic():
 def test_removal_shares_the_deficit_trunk():
     # Deficit from 0 until t in {5, 10, 20}, 30 epochs: clean baseline 30, deficit trunk 0-20,
     # clean tails 25 + 20 + 10 -> 105 epochs instead of 4 x 30 = 120.
-    runs = [RunSpec(0, 0, t, 30) for t in (5, 10, 20)] + [baseline(0, 30)]
+    runs = [RunSpec(seed=0, start=0, length=t, end=30) for t in (5, 10, 20)] + [baseline(0, 30)]
     tree = build_tree(runs, "id")
     assert (tree.epochs_shared, tree.epochs_unshared) == (105, 120)
 
@@ -62,7 +64,8 @@ def test_every_path_replays_its_run(trial):
         for _ in range(rng.randint(1, 8)):
             start, length = rng.randint(0, 20), rng.randint(1, 10)
             end = rng.choice([30, start + length + rng.randint(0, 10)])
-            runs.append(RunSpec(seed, start, length, max(end, start + length)))
+            runs.append(RunSpec(seed=seed, start=start, length=length,
+                                end=max(end, start + length)))
         runs += [baseline(seed, e) for e in {r.end for r in runs if r.seed == seed}]
     tree = build_tree(runs, "id")
     _check_paths(tree)

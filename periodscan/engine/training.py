@@ -25,7 +25,7 @@ from periodscan.seeding import ONCE, derive_seed, generator
 EVAL_BATCH = 1024
 
 
-@dataclass
+@dataclass(kw_only=True)
 class Evaluation:
     """Held-out evaluation: mean loss, accuracy and the per-example correctness vector."""
 

@@ -15,7 +15,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class RunSpec:
     """One training run: a seed, a deficit window (length 0 = baseline) and an end epoch."""
 
@@ -46,7 +46,7 @@ def baseline(seed: int, end: int) -> RunSpec:
     return RunSpec(seed=seed, start=0, length=0, end=end)
 
 
-@dataclass
+@dataclass(kw_only=True)
 class Segment:
     """Epochs ``[begin, end)`` of one seed, all with the deficit on or all off."""
 
@@ -64,7 +64,7 @@ class Segment:
         return self.end - self.begin
 
 
-@dataclass
+@dataclass(kw_only=True)
 class RunTree:
     """All segments of a sweep, keyed by id, plus each run's path from root to leaf."""
 
@@ -130,7 +130,8 @@ def _grow(tree, identity, seed, group, flags, begin, parent) -> None:
         while all(r.end > end and flags[r.run_id][end] == flag for r in members):
             end += 1
         sid = segment_id(identity, seed, flags[members[0].run_id][:end])
-        seg = Segment(sid, seed, begin, end, flag == "1", parent)
+        seg = Segment(segment_id=sid, seed=seed, begin=begin, end=end, deficit_on=flag == "1",
+                      parent=parent)
         seg.finishes = [r for r in members if r.end == end]
         tree.segments[sid] = seg
         if parent is not None:
