@@ -18,12 +18,14 @@ import itertools
 import tempfile
 import time
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
 
-from periodscan.adaptive import boundaries, grid_branch_epochs, run_adaptive
-from periodscan.sweep import run_sweep
+from periodscan.api import load_sweep
+from periodscan.designs.adaptive_search import boundaries
+from periodscan.jobs.sweep import run_sweep
 
 HERE = Path(__file__).resolve().parent
 
@@ -52,6 +54,24 @@ CONFIGS = {
 }
 
 
+def grid_branch_epochs(epochs: int, starts: list[int], seeds: int) -> int:
+    """Epochs a full grid of one length trains after each window start, over its seeds."""
+    return sum(epochs - s for s in starts) * seeds
+
+
+def run_adaptive(overrides: list[str]) -> SimpleNamespace:
+    """The sweep job on design=adaptive, with what the comparison reads from its design."""
+    outcome = run_sweep(overrides, quiet=True)
+    with load_sweep(outcome.folder) as view:
+        seeds = view.design.seeds_per_start
+        epochs = view.schedule_epochs
+    critical_until, safe_from = boundaries(outcome.table)
+    return SimpleNamespace(
+        table=outcome.table, seeds_per_start=seeds, critical_until=critical_until,
+        safe_from=safe_from, rounds=sum(n.startswith("round ") for n in outcome.notes),
+        branch_epochs=sum((epochs - s) * n for s, n in seeds.items()))
+
+
 def compare(name: str, spec: dict, results_dir: str, seeds: int) -> list[str]:
     common = [*spec["overrides"], f"results_dir={results_dir}", f"name=adaptive-{spec['folder']}",
               f"tolerance={spec['tolerance']}"]
@@ -64,8 +84,7 @@ def compare(name: str, spec: dict, results_dir: str, seeds: int) -> list[str]:
                              f"design.resolution={spec.get('resolution', 5)}",
                              f"design.initial_step={spec['initial_step']}",
                              "design.first_start=0", f"design.last_start={spec['starts'][-1]}",
-                             "design.seeds_initial=3", f"design.seeds_max={seeds}"],
-                            quiet=True)
+                             "design.seeds_initial=3", f"design.seeds_max={seeds}"])
     grid_epochs = grid_branch_epochs(spec["epochs"], spec["starts"], seeds)
     trained = grid.counts["done"]
     grid_wall = (f"{grid_seconds:.0f} s wall" if trained else

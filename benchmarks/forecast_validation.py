@@ -29,8 +29,8 @@ import numpy as np
 import pandas as pd
 from scipy.stats import spearmanr
 
-from periodscan.fisher.forecast import forecast
-from periodscan.sweep import run_sweep
+from periodscan.jobs.forecast import forecast
+from periodscan.jobs.sweep import run_sweep
 
 OUT = Path(__file__).parent / "results" / "forecast_validation.md"
 

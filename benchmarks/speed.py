@@ -50,7 +50,7 @@ from periodscan.engine.schedule import build_optimizer
 from periodscan.engine.segment import build_model, load_data, train_from_scratch
 from periodscan.engine.training import train_epoch
 from periodscan.engine.tree import build_tree
-from periodscan.sweep import run_sweep
+from periodscan.jobs.sweep import run_sweep
 
 HERE = Path(__file__).resolve().parent
 SWEEPS = {

@@ -2,7 +2,7 @@
 
 Users act on what the tool tells them, so we publish how it behaves on cases whose outcome the
 field expects. Every sweep of the study is a Hydra preset, configs/experiment/validation_*.yaml;
-this script runs them one after another through the library (``periodscan.sweep.run_sweep``),
+this script runs them one after another through the library (``periodscan.jobs.sweep.run_sweep``),
 then writes into docs/validation/:
 
 * ``results.csv`` - one row per sweep x window: damage with its interval, the verdicts, and the
@@ -50,7 +50,7 @@ import torch  # noqa: E402
 from periodscan.analysis.sensitivity import paired_damage  # noqa: E402
 from periodscan.analysis.verdicts import CRITICAL  # noqa: E402
 from periodscan.api import load_sweep  # noqa: E402
-from periodscan.sweep import run_sweep  # noqa: E402
+from periodscan.jobs.sweep import run_sweep  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 DOCS = REPO / "docs" / "validation"

@@ -12,8 +12,6 @@ it is safe while the sweep is still running, and returns a :class:`SweepView`::
 
 from __future__ import annotations
 
-import json
-import sqlite3
 from functools import cached_property
 from pathlib import Path
 from typing import Any
@@ -22,21 +20,14 @@ import pandas as pd
 import yaml
 
 from periodscan.analysis.mcnemar import mcnemar_frame
-from periodscan.analysis.sensitivity import sensitivity_table
-from periodscan.errors import SweepError
+from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
+from periodscan.analysis.planner import PlanAnswer, check_question, plan_from_table
+from periodscan.designs import Design, Layout, load_design
+from periodscan.errors import PeriodscanError, SweepError
 from periodscan.ledger import FILE_NAME, Ledger
-from periodscan.planner import PlanAnswer, check_question, plan_from_table
+from periodscan.params import seed_list
 
 CONFIG_NAME = "config.yaml"
-
-
-class ReadOnlyLedger(Ledger):
-    """The sweep's ledger opened with SQLite's read-only mode: readers never write or create."""
-
-    def __init__(self, folder: str | Path):
-        self.path = Path(folder) / FILE_NAME
-        self.conn = sqlite3.connect(f"{self.path.resolve().as_uri()}?mode=ro", uri=True,
-                                    timeout=30)
 
 
 def resolve_folder(sweep: str | Path, results_dir: str | Path = "results") -> Path:
@@ -56,7 +47,7 @@ class SweepView:
 
     def __init__(self, folder: str | Path):
         self.folder = Path(folder)
-        self.ledger = ReadOnlyLedger(self.folder)
+        self.ledger = Ledger.read_only(self.folder)
         path = self.folder / CONFIG_NAME
         self.config: dict[str, Any] = (yaml.safe_load(path.read_text()) or {}
                                        if path.is_file() else {})
@@ -85,24 +76,25 @@ class SweepView:
             epochs = int(self._all_runs.end_epoch.max()) if len(self._all_runs) else 1
         return int(epochs)
 
-    @property
-    def design(self) -> dict[str, Any]:
-        return dict(self.config.get("design") or {})
-
-    @property
-    def is_removal(self) -> bool:
-        return self.design.get("kind") == "removal"
-
-    @property
-    def is_adaptive(self) -> bool:
-        return self.design.get("kind") == "adaptive"
-
     @cached_property
-    def adaptive_seeds(self) -> dict[int, int] | None:
-        """Seeds per start of a finished adaptive design (None for other designs)."""
-        from periodscan.adaptive import SEEDS_META, stored_seeds
+    def design(self) -> Design | None:
+        """The sweep's design with its stored state (None when config.yaml is missing or from
+        a version whose design this one cannot read: every run in the ledger is then used)."""
+        if not self.config:
+            return None
+        try:
+            return load_design(self.config, seed_list(self.config), self.meta)
+        except PeriodscanError:
+            return None
 
-        return stored_seeds(self.ledger.get_meta(SEEDS_META)) if self.is_adaptive else None
+    @property
+    def layout(self) -> Layout:
+        """How views label this design's windows."""
+        return self.design.layout if self.design else Layout()
+
+    @property
+    def design_summary(self) -> str:
+        return self.design.summary() if self.design else "(no readable design in config.yaml)"
 
     @property
     def tolerance(self) -> float:
@@ -119,14 +111,8 @@ class SweepView:
 
     @cached_property
     def meta(self) -> dict[str, Any]:
-        rows = self.ledger.conn.execute("SELECT key, value FROM meta").fetchall()
-        out = {}
-        for key, value in rows:
-            try:
-                out[key] = json.loads(value)
-            except ValueError:
-                out[key] = value
-        return out
+        """The ledger's meta values (JSON decoded): identity, command, design state, ..."""
+        return self.ledger.meta_values()
 
     # --- frames --------------------------------------------------------------------------
     @cached_property
@@ -136,25 +122,9 @@ class SweepView:
     @cached_property
     def run_ids(self) -> set[str] | None:
         """Runs of the design in config.yaml (a ledger can also hold runs of earlier designs)."""
-        if not self.config:
+        if self.design is None:
             return None
-        if self.is_adaptive:
-            return self._adaptive_run_ids()
-        from periodscan.config import plan_runs
-
-        try:
-            return {r.run_id for r in plan_runs(self.config)}
-        except Exception:  # noqa: BLE001 - an unreadable design: fall back to every run
-            return None
-
-    def _adaptive_run_ids(self) -> set[str] | None:
-        """Runs the adaptive design used: its starts at their seed counts, baselines to the cap."""
-        from periodscan.adaptive import adaptive_settings, runs_used
-
-        if self.adaptive_seeds is None:  # interrupted before it finished: every run in the folder
-            return None
-        return set(runs_used(self._all_runs, adaptive_settings(self.config),
-                             self.adaptive_seeds).run_id)
+        return set(self.design.runs_used(self._all_runs).run_id)
 
     @cached_property
     def runs(self) -> pd.DataFrame:
@@ -195,50 +165,42 @@ class SweepView:
         tolerance = self.tolerance if tolerance is None else tolerance
         confidence = self.confidence if confidence is None else confidence
         check_question(1, tolerance, confidence, None)
-        if self.is_adaptive and self.adaptive_seeds is not None:
-            from periodscan.adaptive import adaptive_settings, adaptive_table
-
-            return adaptive_table(self.runs, adaptive_settings(self.config),
-                                  self.adaptive_seeds, confidence, tolerance)
-        return sensitivity_table(
-            self.runs, self.schedule_epochs, confidence, tolerance=tolerance,
-            family="all" if self.is_removal else "length",
-            mcnemar=self.mcnemar if with_mcnemar else None)
+        mcnemar = self.mcnemar if with_mcnemar else None
+        if self.design is None:
+            return sensitivity_table(self.runs, self.schedule_epochs,
+                                     TableOptions(confidence=confidence, tolerance=tolerance),
+                                     mcnemar)
+        return self.design.table(self.runs, confidence, tolerance, mcnemar)
 
     def plan(self, length: int | None = None, tolerance: float | None = None,
              confidence: float | None = None,
              production_epochs: int | None = None) -> PlanAnswer:
         """The planner's answer for a deficit of ``length`` epochs (default: shortest measured)."""
-        if self.is_removal:
-            raise SweepError("plan answers window designs (where may a deficit of L epochs "
-                             "go?); this sweep is a removal design: read its table instead")
+        if not self.layout.plannable:
+            raise SweepError(f"plan answers window designs (where may a deficit of L epochs "
+                             f"go?); this sweep's design is {self.design_summary}: read its "
+                             "table instead")
         table = self.table(tolerance, confidence, with_mcnemar=False)
         if length is None:
             if table.empty:
                 raise SweepError(f"sweep {self.name!r} has no window runs yet")
             length = int(table.length.min())
+        block = self.config.get("design") or {}
         return plan_from_table(table, length, self.schedule_epochs, production_epochs,
-                               sweep=self.name, budget=self.design.get("budget", "fixed_total"),
-                               recovery_epochs=self.design.get("recovery_epochs"),
-                               holm_family=self._adaptive_family())
-
-    def _adaptive_family(self) -> int | None:
-        """Candidate starts an adaptive design's Holm correction counted (None otherwise)."""
-        if not self.is_adaptive or self.adaptive_seeds is None:
-            return None
-        from periodscan.adaptive import candidate_starts
-
-        return len(candidate_starts(self.config))
+                               sweep=self.name, budget=block.get("budget", "fixed_total"),
+                               recovery_epochs=block.get("recovery_epochs"),
+                               holm_family=self.design.holm_family_size() if self.design
+                               else None)
 
     def status(self):
-        """Progress of the sweep: runs and epochs done, failures, ETA (see periodscan.status)."""
-        from periodscan.status import sweep_status
+        """Progress of the sweep: runs and epochs done, failures, ETA (see periodscan.analysis.progress)."""
+        from periodscan.analysis.progress import sweep_status
 
         return sweep_status(self)
 
     def report(self, **kwargs):
-        """Write the report files into the sweep folder (see periodscan.report.write_report)."""
-        from periodscan.report import write_report
+        """Write the report files into the sweep folder (see periodscan.views.report.write_report)."""
+        from periodscan.views.report import write_report
 
         return write_report(self, **kwargs)
 

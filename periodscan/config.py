@@ -11,7 +11,6 @@ import difflib
 import functools
 import hashlib
 import json
-import math
 import os
 import re
 from collections.abc import Sequence
@@ -23,10 +22,10 @@ from hydra import compose, initialize_config_dir
 from hydra.core.override_parser.overrides_parser import OverridesParser
 from hydra.errors import HydraException, OverrideParseException
 from omegaconf import DictConfig, OmegaConf
-from omegaconf.errors import OmegaConfBaseException
+from omegaconf.errors import MissingMandatoryValue, OmegaConfBaseException
 
-from periodscan.engine.tree import RunSpec, baseline
-from periodscan.errors import ConfigError, bad_value
+from periodscan.errors import ConfigError
+from periodscan.params import ROOT, check_settings, check_value
 
 #: Bump when a change to the engine changes the numbers a config produces.
 ENGINE_VERSION = 1
@@ -125,13 +124,18 @@ def available_options(group: str) -> list[str]:
 
 
 def to_plain(cfg: DictConfig) -> dict[str, Any]:
-    """Resolved plain containers; a ``???`` left unset becomes a ConfigError naming the key."""
+    """Resolved plain containers; a ``???`` left unset or an unreadable ``${...}`` names its key."""
     try:
         return OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
-    except OmegaConfBaseException as err:
+    except MissingMandatoryValue as err:
         key = getattr(err, "full_key", None) or "?"
         raise ConfigError(f"The '{key}' parameter is required but was not set "
                           f"(pass it as an override, e.g. {key}=...)") from None
+    except OmegaConfBaseException as err:
+        key = getattr(err, "full_key", None) or "?"
+        why = (str(err).splitlines() or ["cannot be resolved"])[0]
+        why = re.sub(r"^\w+ raised while resolving interpolation: ", "", why)
+        raise ConfigError(f"The '{key}' parameter cannot be read: {why}") from None
 
 
 def training_identity(plain: dict[str, Any]) -> str:
@@ -142,79 +146,23 @@ def training_identity(plain: dict[str, Any]) -> str:
     return hashlib.sha256(json.dumps(keyed, sort_keys=True, default=str).encode()).hexdigest()[:16]
 
 
-# --- validation ------------------------------------------------------------------------------
+# --- values ---------------------------------------------------------------------------------
 
-def _int(value: Any, field: str, low: int = 0) -> int:
-    if isinstance(value, bool) or not isinstance(value, int) or value < low:
-        raise bad_value(field, f"an int >= {low}", value)
-    return value
-
-
-def _number(value: Any, field: str, low: float, high: float | None = None,
-            low_open: bool = False) -> float:
-    ok = isinstance(value, (int, float)) and not isinstance(value, bool)
-    if ok:
-        ok = (value > low if low_open else value >= low) and (high is None or value <= high)
-    if not ok:
-        bracket = "(" if low_open else "["
-        upper = f"{high}]" if high is not None else "inf)"
-        raise bad_value(field, f"a number in {bracket}{low}, {upper}", value)
-    return float(value)
-
-
-def seed_list(plain: dict[str, Any]) -> list[int]:
-    """``seeds`` is a count (seeds 0..n-1) or an explicit list of distinct ints."""
-    seeds = plain.get("seeds")
-    if isinstance(seeds, int) and not isinstance(seeds, bool):
-        return list(range(_int(seeds, "seeds", 1)))
-    if isinstance(seeds, list) and seeds and all(isinstance(s, int) for s in seeds):
-        if len(set(seeds)) != len(seeds):
-            raise bad_value("seeds", "a list of distinct ints", seeds)
-        return list(seeds)
-    raise bad_value("seeds", "an int >= 1 or a non-empty list of ints", seeds)
-
-
-def _span(first: int, last: int, step: int = 1) -> list[int]:
+def _span(*args: Any) -> list[int]:
     """``${span:0,45,5}`` in a config or override: epochs first..last (included) every step."""
-    if step < 1 or last < first:
-        raise ConfigError(f"span: need first <= last and step >= 1; got span:{first},{last},{step}")
-    return list(range(int(first), int(last) + 1, int(step)))
+    text = ",".join(map(str, args))
+    ints = [a for a in args if isinstance(a, int) and not isinstance(a, bool)]
+    if len(args) not in (2, 3) or len(ints) != len(args):
+        raise ConfigError(f"${{span:{text}}} cannot be read: span takes two or three ints, "
+                          "first,last[,step], e.g. ${span:0,40,10}")
+    first, last, step = (*ints, 1)[:3]
+    if step < 1 or last < first or first < 0:
+        raise ConfigError(f"${{span:{text}}} cannot be read: it needs 0 <= first <= last and "
+                          "step >= 1, e.g. ${span:0,40,10}")
+    return list(range(first, last + 1, step))
 
 
 OmegaConf.register_new_resolver("span", _span, replace=True)
-
-
-def expand_epochs(value: Any, field: str) -> list[int]:
-    """A non-empty list of distinct epochs (``${span:a,b,step}`` resolves to one)."""
-    if isinstance(value, list) and value:
-        epochs = [_int(v, field) for v in value]
-        if len(set(epochs)) != len(epochs):
-            raise bad_value(field, "a list without repeated epochs", value)
-        return sorted(epochs)
-    raise bad_value(field, "a non-empty list of ints, or ${span:first,last,step}", value)
-
-
-def validate_schedule(schedule: dict[str, Any]) -> None:
-    _int(schedule.get("epochs"), "schedule.epochs", 1)
-    _int(schedule.get("batch_size"), "schedule.batch_size", 1)
-    opt = schedule.get("optimizer") or {}
-    if opt.get("name") not in ("sgd", "adam"):
-        raise bad_value("schedule.optimizer.name", "one of 'sgd', 'adam'", opt.get("name"))
-    _number(opt.get("lr"), "schedule.optimizer.lr", 0.0, low_open=True)
-    _number(opt.get("momentum", 0.0), "schedule.optimizer.momentum", 0.0, 1.0)
-    _number(opt.get("weight_decay", 0.0), "schedule.optimizer.weight_decay", 0.0)
-    lrs = schedule.get("lr_schedule") or {}
-    kind = lrs.get("kind")
-    if kind not in ("constant", "step", "exponential", "cosine"):
-        raise bad_value("schedule.lr_schedule.kind",
-                        "one of 'constant', 'step', 'exponential', 'cosine'", kind)
-    if kind in ("step", "exponential"):
-        _number(lrs.get("gamma"), "schedule.lr_schedule.gamma", 0.0, 1.0, low_open=True)
-    if kind == "step":
-        _int(lrs.get("step_size"), "schedule.lr_schedule.step_size", 1)
-    _int(lrs.get("warmup_epochs", 0) or 0, "schedule.lr_schedule.warmup_epochs")
-    augment = schedule.get("augment") or {}
-    _int(augment.get("max_shift", 0), "schedule.augment.max_shift")
 
 
 #: Groups read only by periodscan itself: every key must be one a shipped option of the group
@@ -262,85 +210,13 @@ def check_known_keys(plain: dict[str, Any]) -> None:
     walk(plain, known_keys(), "")
 
 
-def validate_run_settings(plain: dict[str, Any]) -> None:
-    """Root settings that shape the analysis: confidence level and tolerance (points)."""
-    confidence = plain.get("confidence", 0.95)
-    if (isinstance(confidence, bool) or not isinstance(confidence, (int, float))
-            or not 0.0 < confidence < 1.0):
-        raise bad_value("confidence", "a number in the open interval (0, 1)", confidence)
-    tolerance = plain.get("tolerance")
-    if tolerance is not None and (
-            isinstance(tolerance, bool) or not isinstance(tolerance, (int, float))
-            or not math.isfinite(tolerance) or tolerance < 0):
-        raise bad_value("tolerance", "null or a finite number >= 0 (accuracy points)", tolerance)
-
-
-def validate_executor(executor: dict[str, Any]) -> None:
-    kinds = ("serial", "local", "dask")
-    if executor.get("kind") not in kinds:
-        raise bad_value("executor.kind", f"one of {', '.join(map(repr, kinds))}",
-                        executor.get("kind"))
-    if executor.get("workers") is not None:
-        _int(executor["workers"], "executor.workers", 1)
-    _int(executor.get("threads_per_worker", 1), "executor.threads_per_worker", 1)
-    address = executor.get("address")
-    if address is not None and (not isinstance(address, str) or ":" not in address):
-        raise bad_value("executor.address", "null or a Dask scheduler address such as "
-                        "'tcp://host:8786' or 'host:8786'", address)
-
-
-def plan_runs(plain: dict[str, Any]) -> list[RunSpec]:
-    """Validate the design against the schedule and list every run (baselines included)."""
+def check_config(plain: dict[str, Any]) -> None:
+    """Keys and values of everything periodscan reads itself (designs check their own block)."""
     check_known_keys(plain)
-    validate_run_settings(plain)
-    validate_schedule(plain["schedule"])
-    validate_executor(plain["executor"])
-    seeds = seed_list(plain)
-    epochs = plain["schedule"]["epochs"]
-    design = plain["design"]
-    kind = design.get("kind")
-    if kind == "window":
-        starts = expand_epochs(design.get("starts"), "design.starts")
-        lengths = expand_epochs(design.get("lengths"), "design.lengths")
-        if 0 in lengths:
-            raise bad_value("design.lengths", "ints >= 1", design.get("lengths"))
-        windows = [(s, n) for s in starts for n in lengths]
-    elif kind == "removal":
-        until = expand_epochs(design.get("until"), "design.until")
-        if 0 in until:
-            raise bad_value("design.until", "ints >= 1", design.get("until"))
-        windows = [(0, t) for t in until]
-    else:
-        raise bad_value("design.kind", "one of 'window', 'removal', 'adaptive' (adaptive runs "
-                        "through periodscan.adaptive.run_adaptive)", kind)
-
-    budget = design.get("budget")
-    if budget == "fixed_total":
-        for start, length in windows:
-            if start + length > epochs:
-                field = "design.until" if kind == "removal" else "design.starts"
-                latest = epochs - length
-                allowed = (f"windows that end by the last epoch ({epochs}); for length {length} "
-                           f"the latest start is {latest}" if latest >= 0 else
-                           f"lengths up to schedule.epochs ({epochs})")
-                raise ConfigError(f"The '{field}' parameter must give {allowed}. Got window "
-                                  f"[{start}, {start + length}) instead.")
-        ends = {w: epochs for w in windows}
-    elif budget == "fixed_recovery":
-        recovery = _int(design.get("recovery_epochs"), "design.recovery_epochs", 1)
-        ends = {(s, n): s + n + recovery for s, n in windows}
-    else:
-        raise bad_value("design.budget", "one of 'fixed_total', 'fixed_recovery'", budget)
-
-    runs = []
-    for seed in seeds:
-        runs += [RunSpec(seed, s, n, ends[(s, n)]) for s, n in windows]
-        runs += [baseline(seed, end) for end in sorted(set(ends.values()))]
-    return runs
+    check_settings(plain)
 
 
 def results_folder(plain: dict[str, Any]) -> Path:
-    name = plain.get("name")
-    if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9_.\-]+", name or ""):
-        raise bad_value("name", "a folder name of letters, digits, '.', '_' or '-'", name)
+    """``<results_dir>/<name>``: where a sweep writes."""
+    name = check_value("name", plain.get("name"), ROOT["name"])
     return Path(os.path.expanduser(str(plain.get("results_dir", "results")))) / name

@@ -5,15 +5,19 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 
-from periodscan.adaptive import (
-    _coarse,
-    boundaries,
-    grid_branch_epochs,
-    next_round,
-    run_adaptive,
-)
+from periodscan.api import load_sweep
+from periodscan.designs.adaptive_search import boundaries, coarse, next_round
 from periodscan.errors import ConfigError
-from periodscan.sweep import run_sweep
+from periodscan.jobs.sweep import run_sweep
+from periodscan.views.plan import plan_notes
+
+
+def run_adaptive(overrides: list[str]):
+    """The sweep job on design=adaptive, with the seeds per start its design settled on."""
+    outcome = run_sweep(overrides, quiet=True)
+    with load_sweep(outcome.folder) as view:
+        seeds = view.design.seeds_per_start
+    return outcome, seeds
 
 SETTINGS = {"resolution": 1, "seeds_initial": 3, "seeds_max": 7, "tolerance": 0.5}
 
@@ -25,8 +29,8 @@ def _table(verdicts: dict[int, str], damage: dict[int, float] | None = None) -> 
 
 
 def test_coarse_pass_includes_the_last_start():
-    assert _coarse(0, 45, 8) == [0, 8, 16, 24, 32, 40, 45]
-    assert _coarse(0, 40, 8) == [0, 8, 16, 24, 32, 40]
+    assert coarse(0, 45, 8) == [0, 8, 16, 24, 32, 40, 45]
+    assert coarse(0, 40, 8) == [0, 8, 16, 24, 32, 40]
 
 
 def test_first_the_latest_possibly_critical_start_and_the_last_start_go_to_the_cap():
@@ -96,26 +100,22 @@ def test_boundaries():
     assert boundaries(table) == (10, None)
 
 
-def test_grid_branch_epochs():
-    # Starts 0, 5, 10 on 20 epochs, 2 seeds: (20 + 15 + 10) x 2.
-    assert grid_branch_epochs(20, [0, 5, 10], 2) == 90
-
-
 def test_adaptive_end_to_end_reuses_one_folder(tmp_path):
-    outcome = run_adaptive(["experiment=tiny", "design=adaptive", "design.length=3",
-                            "design.initial_step=2", "design.seeds_initial=2",
-                            "design.seeds_max=3", "tolerance=5",
-                            f"results_dir={tmp_path}"], quiet=True)
-    assert outcome.rounds >= 1
-    assert set(outcome.table.start) == set(outcome.seeds_per_start)
-    assert all(2 <= n <= 3 for n in outcome.seeds_per_start.values())
+    outcome, seeds = run_adaptive(["experiment=tiny", "design=adaptive", "design.length=3",
+                                   "design.initial_step=2", "design.seeds_initial=2",
+                                   "design.seeds_max=3", "tolerance=5",
+                                   f"results_dir={tmp_path}"])
+    assert any(n.startswith("round 1:") for n in outcome.notes)
+    assert any("latest critical start" in n for n in outcome.notes)
+    assert set(outcome.table.start) == set(seeds)
+    assert all(2 <= n <= 3 for n in seeds.values())
     assert (tmp_path / "tiny" / "ledger.sqlite").is_file()
 
 
 def test_adaptive_needs_a_tolerance(tmp_path):
     with pytest.raises(ConfigError, match="tolerance"):
         run_adaptive(["experiment=tiny", "design=adaptive", "design.length=3", "tolerance=null",
-                      f"results_dir={tmp_path}"], quiet=True)
+                      f"results_dir={tmp_path}"])
 
 
 def test_adaptive_reuses_the_grid_runs_and_is_never_bolder(tmp_path):
@@ -125,10 +125,10 @@ def test_adaptive_reuses_the_grid_runs_and_is_never_bolder(tmp_path):
     common = ["experiment=tiny", "tolerance=0.5", f"results_dir={tmp_path}", "name=edge"]
     grid = run_sweep([*common, "design.starts=[0,1,2,3,4]", "seeds=3"], quiet=True)
     before = _segments(tmp_path / "edge")
-    outcome = run_adaptive([*common, "design=adaptive", "design.length=3",
-                            "design.initial_step=2", "design.first_start=0",
-                            "design.last_start=4", "design.seeds_initial=2",
-                            "design.seeds_max=3"], quiet=True)
+    outcome, seeds = run_adaptive([*common, "design=adaptive", "design.length=3",
+                                   "design.initial_step=2", "design.first_start=0",
+                                   "design.last_start=4", "design.seeds_initial=2",
+                                   "design.seeds_max=3"])
     assert _segments(tmp_path / "edge") == before
     grid_verdict = dict(zip(grid.table.start, grid.table.verdict, strict=True))
     for row in outcome.table.itertuples():
@@ -150,24 +150,22 @@ def test_a_finished_adaptive_folder_reads_by_the_adaptive_rule(tmp_path):
     # A grid at the cap in the same folder, then the adaptive design: load_sweep, plan and the
     # table must describe the adaptive design's runs only (its starts at their seed counts),
     # with verdicts at the cap and Holm over the whole candidate grid, as run_adaptive did.
-    from periodscan.api import load_sweep
-
     common = ["experiment=tiny", "tolerance=0.5", f"results_dir={tmp_path}", "name=edge"]
     run_sweep([*common, "design.starts=[0,1,2,3,4]", "seeds=3"], quiet=True)
-    outcome = run_adaptive([*common, "design=adaptive", "design.length=3",
-                            "design.initial_step=2", "design.first_start=0",
-                            "design.last_start=4", "design.seeds_initial=2",
-                            "design.seeds_max=3"], quiet=True)
+    outcome, seeds = run_adaptive([*common, "design=adaptive", "design.length=3",
+                                   "design.initial_step=2", "design.first_start=0",
+                                   "design.last_start=4", "design.seeds_initial=2",
+                                   "design.seeds_max=3"])
     with load_sweep(tmp_path / "edge") as view:
-        assert view.is_adaptive and view.adaptive_seeds == outcome.seeds_per_start
+        assert view.design.kind == "adaptive" and view.design.seeds_per_start == seeds
         windows = view.runs[view.runs.is_baseline == 0]
-        assert windows.groupby("start_epoch").size().to_dict() == outcome.seeds_per_start
+        assert windows.groupby("start_epoch").size().to_dict() == seeds
         table = view.table()
         pd.testing.assert_series_equal(table.verdict, outcome.table.verdict)
         pd.testing.assert_series_equal(table.p_holm, outcome.table.p_holm)
         answer = view.plan()
-    notes = " ".join(answer.notes)
+    notes = " ".join(plan_notes(answer))
     assert "all 5 candidate starts of the adaptive grid" in notes
-    screened = [s for s, n in outcome.seeds_per_start.items() if n < 3]
+    screened = [s for s, n in seeds.items() if n < 3]
     assert ("Adaptive design" in notes) == bool(screened)
     assert [s.start for s in answer.starts if not s.confirmed] == sorted(screened)

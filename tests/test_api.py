@@ -14,8 +14,8 @@ from scipy import stats
 import periodscan
 from periodscan.api import load_sweep
 from periodscan.errors import PeriodscanError, SweepError
-from periodscan.planner import PlanAnswer
-from periodscan.sweep import run_sweep
+from periodscan.analysis.planner import PlanAnswer
+from periodscan.jobs.sweep import run_sweep
 
 
 def build_tiny_sweep(base: Path) -> Path:

@@ -18,7 +18,7 @@ import pytest
 from PIL import Image
 
 from periodscan.cli import main
-from periodscan.commands.sweep import EXIT_NO_BASELINE
+from periodscan.commands.common import EXIT_NO_BASELINE
 
 TINY = ["experiment=tiny", "seeds=1", "data.n_train=400", "schedule.batch_size=50"]
 OWN = ["executor=serial", "seeds=1", "schedule.epochs=8", "design.starts=[0,2]",
@@ -34,7 +34,7 @@ CASES = [
     ("misspelled deficit argument", [*TINY, "deficit.sigmaa=2"], ["deficit.sigmaa", "'sigma'"]),
     ("window past the last epoch", [*TINY, "design.starts=[0,6]"],
      ["design.starts", "[6, 9)", "latest start is 5"]),
-    ("repeated starts", [*TINY, "design.starts=[2,2]"], ["design.starts", "repeated"]),
+    ("repeated starts", [*TINY, "design.starts=[2,2]"], ["design.starts", "distinct"]),
     ("empty start list", [*TINY, "design.starts=[]"], ["design.starts", "non-empty"]),
     ("zero-length window", [*TINY, "design.lengths=[0]"], ["design.lengths", ">= 1"]),
     ("negative rate", [*TINY, "deficit=label_noise", "deficit.rate=-0.1"],
@@ -45,17 +45,17 @@ CASES = [
      ["deficit.fraction", "-0.2"]),
     ("class index out of range", [*TINY, "deficit=class_dropout", "deficit.classes=[12]"],
      ["deficit.classes", "12"]),
-    ("zero seeds", [*TINY, "seeds=0"], ["seeds", ">= 1", "0"]),
+    ("zero seeds", [*TINY, "seeds=0"], ["seeds", "[1, inf)", "0"]),
     ("repeated seeds", [*TINY, "seeds=[1,1]"], ["seeds", "distinct"]),
     ("negative learning rate", [*TINY, "schedule.optimizer.lr=-0.1"],
      ["schedule.optimizer.lr", "-0.1"]),
-    ("zero batch size", [*TINY, "schedule.batch_size=0"], ["schedule.batch_size", ">= 1"]),
+    ("zero batch size", [*TINY, "schedule.batch_size=0"], ["schedule.batch_size", "[1, inf)"]),
     ("decay factor 0", [*TINY, "schedule.lr_schedule.gamma=0"], ["schedule.lr_schedule.gamma"]),
     ("recovery budget without epochs", [*TINY, "design.budget=fixed_recovery"],
      ["design.recovery_epochs"]),
-    ("confidence above 1", [*TINY, "confidence=1.5"], ["confidence", "(0, 1)"]),
+    ("confidence above 1", [*TINY, "confidence=1.5"], ["confidence", "[0.5, 1)"]),
     ("unknown executor", [*TINY, "executor=gpu"], ["'executor'", "gpu", "local"]),
-    ("zero workers", [*TINY, "executor.workers=0"], ["executor.workers", ">= 1"]),
+    ("zero workers", [*TINY, "executor.workers=0"], ["executor.workers", "[1, inf)"]),
     ("scheduler address without a port", [*TINY, "executor=dask", "executor.address=myhost"],
      ["executor.address", "myhost"]),
     ("name with a slash", [*TINY, "name=a/b"], ["name", "a/b"]),

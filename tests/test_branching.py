@@ -15,7 +15,9 @@ import torch
 from periodscan.engine import checkpoint
 from periodscan.engine.segment import SegmentJob, run_segment, train_from_scratch
 from periodscan.ledger import Ledger
-from periodscan.sweep import TRAINING_KEYS, prepare, run_sweep
+from periodscan.config import TRAINING_KEYS
+from periodscan.jobs.prepare import prepare
+from periodscan.jobs.sweep import run_sweep
 
 
 def _replay_leaf(prep, run_id):

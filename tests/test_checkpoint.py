@@ -1,4 +1,5 @@
-"""Checkpoint files: atomic writes whose permissions follow the umask, hashes, verified reads.
+"""Files the engine writes: atomic writes whose permissions follow the umask, hashes, verified
+reads, and the folder lock.
 
 Expected modes follow POSIX open(2): a file created with mode 0o666 gets ``0o666 & ~umask``.
 """
@@ -13,7 +14,9 @@ import pytest
 import torch
 
 from periodscan.engine import checkpoint
-from periodscan.sweep import TABLE_CSV, run_sweep
+from periodscan.engine.lock import LOCK_NAME, FolderLock
+from periodscan.jobs.sweep import run_sweep
+from periodscan.views.report import TABLE_CSV
 
 posix_only = pytest.mark.skipif(sys.platform == "win32", reason="POSIX permission bits")
 
@@ -40,6 +43,15 @@ def test_write_atomic_respects_the_umask(tmp_path, umask, mask, expected):
     assert _mode(target) == expected
     checkpoint.write_atomic(target, b"replaced")  # a rewrite gets the mode afresh
     assert target.read_bytes() == b"replaced" and _mode(target) == expected
+
+
+@posix_only
+@pytest.mark.parametrize("mask, expected", [(0o022, 0o644), (0o002, 0o664)])
+def test_lock_file_respects_the_umask(tmp_path, umask, mask, expected):
+    umask(mask)
+    with FolderLock(tmp_path):
+        assert _mode(tmp_path / LOCK_NAME) == expected
+    assert not (tmp_path / LOCK_NAME).exists()
 
 
 @posix_only

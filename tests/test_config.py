@@ -7,12 +7,20 @@ import pytest
 from periodscan.config import (
     GROUPS,
     available_options,
+    check_config,
     compose_config,
-    plan_runs,
     to_plain,
     training_identity,
 )
+from periodscan.designs import load_design
 from periodscan.errors import ConfigError
+from periodscan.params import seed_list
+
+
+def plan_runs(plain):
+    """What a job validates before it trains: settings, then the design's first round."""
+    check_config(plain)
+    return load_design(plain, seed_list(plain)).preview()
 
 
 def test_default_is_the_demo():
@@ -73,7 +81,7 @@ def test_identity_ignores_design_but_not_training():
         (["design.starts=[50]"], ["design.starts", "[50, 65)", "45"]),
         (["seeds=0"], ["seeds", "0"]),
         (["design.lengths=[]"], ["design.lengths"]),
-        (["design.starts=[5,5]"], ["design.starts", "repeated"]),
+        (["design.starts=[5,5]"], ["design.starts", "distinct"]),
         (["design.kind=diagonal"], ["design.kind", "window", "removal"]),
         (["schedule.optimizer.lr=-1"], ["schedule.optimizer.lr"]),
     ],

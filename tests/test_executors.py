@@ -15,7 +15,8 @@ import sqlite3
 
 import pytest
 
-from periodscan.sweep import TABLE_CSV, run_sweep
+from periodscan.jobs.sweep import run_sweep
+from periodscan.views.report import TABLE_CSV
 
 
 def _fingerprint(folder):

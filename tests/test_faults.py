@@ -23,12 +23,15 @@ import torch
 from helpers import Payload
 
 from periodscan.cli import main
-from periodscan.commands.sweep import EXIT_SOME_FAILED, _exit_status
+from periodscan.commands.common import EXIT_SOME_FAILED
+from periodscan.commands.sweep import exit_status
 from periodscan.engine import checkpoint, runner
 from periodscan.engine.lock import LOCK_NAME, FolderLock
 from periodscan.errors import SweepError
 from periodscan.ledger import Ledger
-from periodscan.sweep import TABLE_CSV, prepare, run_sweep
+from periodscan.jobs.prepare import prepare
+from periodscan.jobs.sweep import run_sweep
+from periodscan.views.report import TABLE_CSV
 
 
 def _runs(folder, exclude=()):
@@ -139,7 +142,7 @@ def test_a_run_that_raises_is_recorded_and_the_rest_goes_on(make_config, capsys)
     assert others.test_acc.to_dict() == reference.test_acc[others.index].to_dict()
 
     # The CLI exits with status 4 on such an outcome, and `status` lists the failures.
-    assert _exit_status(outcome.runs, lr=0.05) == EXIT_SOME_FAILED
+    assert exit_status(outcome.runs, lr=0.05) == EXIT_SOME_FAILED
     assert "failed with an error" in capsys.readouterr().err
     assert main(["status", str(outcome.folder)]) == 0
     shown = capsys.readouterr().out

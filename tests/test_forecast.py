@@ -10,10 +10,11 @@ import pytest
 
 from periodscan.cli import main
 from periodscan.fisher import TOTAL
-from periodscan.fisher.forecast import forecast, trunk_tree
+from periodscan.jobs.forecast import forecast, trunk_tree
 from periodscan.fisher.rule import Phase, critical_phase, mean_curve, window_scores
 from periodscan.ledger import Ledger
-from periodscan.sweep import prepare, run_sweep
+from periodscan.jobs.prepare import prepare
+from periodscan.jobs.sweep import run_sweep
 
 # --- the rule, on curves worked by hand ---------------------------------------------------------
 

@@ -36,7 +36,7 @@ import pytest
 from scipy import stats
 
 from periodscan.api import load_sweep
-from periodscan.sweep import run_sweep
+from periodscan.jobs.sweep import run_sweep
 
 pytestmark = pytest.mark.validation
 

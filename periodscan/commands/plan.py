@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from periodscan.commands.report import add_sweep_argument
+from periodscan.commands.common import add_sweep_argument
 
 
 def register(verbs) -> None:
@@ -35,9 +35,9 @@ def register(verbs) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from periodscan.api import load_sweep
-    from periodscan.terminal import format_plan
+    from periodscan.views.plan import format_plan, plan_json
 
     with load_sweep(args.sweep, args.results_dir) as view:
         answer = view.plan(args.length, args.tolerance, args.confidence, args.production_epochs)
-    print(answer.to_json() if args.json else format_plan(answer))
+    print(plan_json(answer) if args.json else format_plan(answer))
     return 0

@@ -4,13 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-
-def add_sweep_argument(parser: argparse.ArgumentParser) -> None:
-    """The positional sweep (folder or name) and --results-dir, shared by the reading verbs."""
-    parser.add_argument("sweep", metavar="SWEEP",
-                        help="sweep folder (results/demo) or sweep name under --results-dir")
-    parser.add_argument("--results-dir", default="results", metavar="DIR",
-                        help="where sweep names are looked up (default: results)")
+from periodscan.commands.common import add_sweep_argument
 
 
 def _window(text: str) -> tuple[int, int]:

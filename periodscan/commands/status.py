@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from periodscan.commands.report import add_sweep_argument
+from periodscan.commands.common import add_sweep_argument
 
 
 def register(verbs) -> None:
@@ -18,16 +18,13 @@ def register(verbs) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import dataclasses
-    import json
-
     from periodscan.api import load_sweep
-    from periodscan.terminal import format_status
+    from periodscan.views.progress import format_status, status_json
 
     with load_sweep(args.sweep, args.results_dir) as view:
         status = view.status()
     if args.json:
-        print(json.dumps(dataclasses.asdict(status), indent=2))
+        print(status_json(status))
     else:
         print(format_status(status))
     return 0

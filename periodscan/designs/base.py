@@ -1,0 +1,128 @@
+"""The Design interface: which runs a sweep trains, and how its table is read back.
+
+A design turns the ``design`` block of a config into runs (seed, window, end epoch) round by
+round, says which runs of a ledger its table uses, and builds that table with the right Holm
+family. Everything else (the job that trains, the views that show) calls this interface and
+never asks which design it is; a new design is one module in this package plus one config file.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from typing import Any, ClassVar
+
+import pandas as pd
+
+from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
+from periodscan.designs.layout import WINDOW, Layout
+from periodscan.engine.tree import RunSpec, baseline
+from periodscan.params import COUNT, EPOCH, ListOf, Options, Shown, bad_value, check, check_value
+
+#: Budgets: every run ends at the last epoch, or gets a fixed number of clean epochs after.
+BUDGETS = ("fixed_total", "fixed_recovery")
+EPOCH_LIST = ListOf(EPOCH, distinct=True,
+                    words="a non-empty list of distinct epochs (ints >= 0), "
+                          "or ${span:first,last,step}")
+LENGTH_LIST = ListOf(COUNT, distinct=True,
+                     words="a non-empty list of distinct lengths (ints >= 1), "
+                           "or ${span:first,last,step}")
+
+#: Ledger meta key under which a job stores ``Design.state()`` for readers.
+STATE_KEY = "design_state"
+
+#: Reads a finished sweep's runs frame (the ledger's ``runs_frame``) between rounds.
+Measured = Callable[[], pd.DataFrame]
+
+
+class Design:
+    """One way of choosing windows. Subclasses set ``kind`` (= module name) and ``fields``."""
+
+    kind: ClassVar[str] = ""
+    layout: ClassVar[Layout] = WINDOW
+    #: Constraint table of the ``design`` block (see :mod:`periodscan.params`).
+    fields: ClassVar[dict[str, list[Any]]] = {}
+    #: Holm family: "length" (the windows of one length) or "all" (every window).
+    family: ClassVar[str] = "length"
+    #: True when later rounds are chosen from the results of earlier ones.
+    more_rounds: ClassVar[bool] = False
+
+    def __init__(self, plain: dict[str, Any], seeds: list[int], state: Any = None):
+        self.block = dict(plain.get("design") or {})
+        self.epochs = int(plain["schedule"]["epochs"])
+        self.seeds = list(seeds)
+        self.confidence = float(plain.get("confidence", 0.95))
+        self.tolerance = plain.get("tolerance")
+        check(self.block, {"kind": [Options((self.kind,))], **self.fields}, "design.")
+
+    # --- what to train ----------------------------------------------------------------
+    def rounds(self, measured: Measured) -> Iterator[list[RunSpec]]:
+        """Runs to train, round by round; ``measured()`` reads what is finished so far."""
+        yield self.preview()
+
+    def preview(self) -> list[RunSpec]:
+        """The runs of the first round (what ``sweep --dry-run`` describes)."""
+        raise NotImplementedError
+
+    # --- reading back -----------------------------------------------------------------
+    def runs_used(self, runs: pd.DataFrame) -> pd.DataFrame:
+        """The rows of a ledger's runs frame that this design's table rests on."""
+        ids = {r.run_id for r in self.preview()}
+        return runs[runs.run_id.isin(ids)]
+
+    def table(self, runs: pd.DataFrame, confidence: float, tolerance: float | None,
+              mcnemar: pd.DataFrame | None = None) -> pd.DataFrame:
+        """Sensitivity table of this design's runs, verdicts Holm-corrected over its family."""
+        options = TableOptions(confidence=confidence, tolerance=tolerance, family=self.family)
+        return sensitivity_table(self.runs_used(runs), self.epochs, options, mcnemar)
+
+    def holm_family_size(self) -> int | None:
+        """Hypotheses Holm counts when more than the measured windows (None: just those)."""
+        return None
+
+    def state(self) -> Any:
+        """What a reader needs beyond the config to rebuild the table (JSON-able), or None."""
+        return None
+
+    @classmethod
+    def state_from_meta(cls, meta: dict[str, Any]) -> Any:
+        """The stored state in a ledger's meta values (see :meth:`state`)."""
+        return meta.get(STATE_KEY)
+
+    def notes(self) -> list[str]:
+        """Lines the design has to say after running (rounds taken, edges found)."""
+        return []
+
+    def summary(self) -> str:
+        """One line describing the design for reports."""
+        return f"{self.kind}: " + ", ".join(f"{k}={v}" for k, v in self.block.items()
+                                             if k != "kind")
+
+
+def budget_ends(block: dict[str, Any], windows: list[tuple[int, int]], epochs: int,
+                field: str) -> dict[tuple[int, int], int]:
+    """End epoch of every (start, length) window under the design's budget.
+
+    ``field`` is the design key to blame for a window past the last epoch (the starts of a
+    window design, the ``until`` epochs of a removal design).
+    """
+    budget = check_value("design.budget", block.get("budget"), [Options(BUDGETS)])
+    if budget == "fixed_recovery":
+        recovery = check_value("design.recovery_epochs", block.get("recovery_epochs"), [COUNT])
+        return {(s, n): s + n + recovery for s, n in windows}
+    for start, length in windows:
+        if start + length > epochs:
+            latest = epochs - length
+            raise bad_value(field, f"windows that end by the last epoch ({epochs}); for length "
+                            f"{length} the latest start is {latest}",
+                            Shown(f"window [{start}, {start + length})"))
+    return {w: epochs for w in windows}
+
+
+def runs_for(seeds: list[int], windows: list[tuple[int, int]],
+             ends: dict[tuple[int, int], int]) -> list[RunSpec]:
+    """Every window run and the baselines they are compared with, for each seed."""
+    runs = []
+    for seed in seeds:
+        runs += [RunSpec(seed=seed, start=s, length=n, end=ends[(s, n)]) for s, n in windows]
+        runs += [baseline(seed, end) for end in sorted(set(ends.values()))]
+    return runs

@@ -1,0 +1,40 @@
+"""``design=removal``: the deficit from epoch 0 until epoch t, for several t, then clean.
+
+It answers "how long may a deficit at the start of training last?". Every run is a window that
+starts at 0, so the runs share one deficit trunk per seed; Holm's correction runs over all of
+them (one question), and the curve is drawn against the epoch the deficit is removed.
+"""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from periodscan.designs.base import BUDGETS, LENGTH_LIST, Design, budget_ends, runs_for
+from periodscan.designs.layout import REMOVAL, Layout
+from periodscan.engine.tree import RunSpec
+from periodscan.params import COUNT, Options
+
+
+class RemovalDesign(Design):
+    """Deficit on during ``[0, t)`` for every t in ``until``."""
+
+    kind: ClassVar[str] = "removal"
+    layout: ClassVar[Layout] = REMOVAL
+    family: ClassVar[str] = "all"
+    fields: ClassVar[dict] = {
+        "until": [LENGTH_LIST],
+        "budget": [Options(BUDGETS)],
+        "recovery_epochs": [COUNT, None],
+    }
+
+    def preview(self) -> list[RunSpec]:
+        windows = [(0, t) for t in sorted(self.block["until"])]
+        ends = budget_ends(self.block, windows, self.epochs, "design.until")
+        return runs_for(self.seeds, windows, ends)
+
+    def summary(self) -> str:
+        return (f"removal: deficit from epoch 0 until {sorted(self.block['until'])}, "
+                f"{self.block.get('budget')}")
+
+
+DESIGN = RemovalDesign

@@ -1,0 +1,47 @@
+"""``design=window``: the deficit on during ``[start, start + length)`` for every start x length.
+
+One length gives a sensitivity curve, several give a start x length grid; either way the runs of
+a seed form one tree of shared segments. Holm's correction runs over the windows of one length,
+the windows that answer one planning question.
+"""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from periodscan.designs.base import BUDGETS, EPOCH_LIST, LENGTH_LIST, Design, budget_ends, runs_for
+from periodscan.engine.tree import RunSpec
+from periodscan.params import COUNT, Interval, Options, bad_value
+
+
+class WindowDesign(Design):
+    """Starts x lengths under a ``fixed_total`` or ``fixed_recovery`` budget."""
+
+    kind: ClassVar[str] = "window"
+    fields: ClassVar[dict] = {
+        "starts": [EPOCH_LIST],
+        "lengths": [LENGTH_LIST],
+        "budget": [Options(BUDGETS)],
+        "recovery_epochs": [COUNT, None],
+    }
+
+    def windows(self) -> list[tuple[int, int]]:
+        starts = sorted(self.block["starts"])
+        lengths = sorted(self.block["lengths"])
+        longest = Interval(int, 1, self.epochs)
+        if self.block.get("budget") == "fixed_total" and not longest.holds(lengths[-1]):
+            raise bad_value("design.lengths", f"lengths that fit in schedule.epochs "
+                            f"({self.epochs}): each {longest}", self.block["lengths"])
+        return [(s, n) for s in starts for n in lengths]
+
+    def preview(self) -> list[RunSpec]:
+        windows = self.windows()
+        ends = budget_ends(self.block, windows, self.epochs, "design.starts")
+        return runs_for(self.seeds, windows, ends)
+
+    def summary(self) -> str:
+        return (f"window: starts {sorted(self.block['starts'])} x lengths "
+                f"{sorted(self.block['lengths'])}, {self.block.get('budget')}")
+
+
+DESIGN = WindowDesign
