@@ -58,7 +58,7 @@ class FolderLock:
 
     def __enter__(self) -> FolderLock:
         for _ in range(3):
-            fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+            fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o666)  # less the umask
             try:
                 if self._acquire(fd):
                     self._fd = fd
