@@ -26,7 +26,7 @@ from typing import Any
 
 from periodscan.engine.allocator import keep_freed_memory
 from periodscan.engine.segment import SegmentJob, SegmentResult, run_segment
-from periodscan.errors import ConfigError, SweepError
+from periodscan.errors import SweepError, bad_value
 
 #: Seconds an idle local worker waits for work before it exits (joblib's own default).
 IDLE_WORKER_TIMEOUT = 300
@@ -186,6 +186,10 @@ class DaskExecutor:
             self._cluster.close()
 
 
+#: The executor kinds ``make_executor`` builds (the config's executor.kind).
+EXECUTORS = ("serial", "local", "dask")
+
+
 def make_executor(settings: dict[str, Any]):
     """Build the executor named by the ``executor`` config group."""
     kind = settings.get("kind")
@@ -196,5 +200,4 @@ def make_executor(settings: dict[str, Any]):
         return LocalExecutor(settings.get("workers"), threads)
     if kind == "dask":
         return DaskExecutor(settings.get("address"), settings.get("workers"), threads)
-    raise ConfigError(f"The 'executor.kind' parameter must be one of 'serial', 'local', 'dask'. "
-                      f"Got {kind!r} instead.")
+    raise bad_value("executor.kind", f"one of {', '.join(map(repr, EXECUTORS))}", kind)
