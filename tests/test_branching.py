@@ -12,12 +12,12 @@ import pandas as pd
 import pytest
 import torch
 
+from periodscan.config import TRAINING_KEYS
 from periodscan.engine import checkpoint
 from periodscan.engine.segment import SegmentJob, run_segment, train_from_scratch
-from periodscan.ledger import Ledger
-from periodscan.config import TRAINING_KEYS
 from periodscan.jobs.prepare import prepare
 from periodscan.jobs.sweep import run_sweep
+from periodscan.ledger import Ledger
 
 
 def _replay_leaf(prep, run_id):

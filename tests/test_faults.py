@@ -28,9 +28,9 @@ from periodscan.commands.sweep import exit_status
 from periodscan.engine import checkpoint, runner
 from periodscan.engine.lock import LOCK_NAME, FolderLock
 from periodscan.errors import SweepError
-from periodscan.ledger import Ledger
 from periodscan.jobs.prepare import prepare
 from periodscan.jobs.sweep import run_sweep
+from periodscan.ledger import Ledger
 from periodscan.views.report import TABLE_CSV
 
 
