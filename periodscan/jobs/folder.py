@@ -27,6 +27,7 @@ from periodscan.engine.lock import LOCK_NAME, FolderLock
 from periodscan.engine.runner import CHECKPOINT_DIR, execute, plan_work
 from periodscan.engine.tree import RunTree
 from periodscan.errors import SweepError
+from periodscan.jobs.fingerprint import changes
 from periodscan.jobs.prepare import Prepared
 from periodscan.ledger import FILE_NAME, Ledger
 
@@ -140,9 +141,24 @@ def open_ledger(prep: Prepared) -> Ledger:
         raise SweepError(f"results folder {prep.folder} holds a sweep trained under another "
                          f"config ({describe_changes(before, prep.training)}); use a new "
                          "name=... or delete that folder")
+    check_fingerprint(ledger, prep)
     if known is None:
         ledger.set_meta(identity=prep.identity, training=prep.training, created=time.time())
     return ledger
+
+
+def check_fingerprint(ledger: Ledger, prep: Prepared) -> None:
+    """Refuse a folder trained on other data, code or versions; record it on first use."""
+    recorded = ledger.get_meta("fingerprint")
+    if recorded is None:
+        ledger.set_meta(fingerprint=prep.fingerprint)
+        return
+    differences = changes(json.loads(recorded), prep.fingerprint)
+    if differences:
+        ledger.close()
+        raise SweepError(f"results folder {prep.folder} holds a sweep trained on something "
+                         f"else: {'; '.join(differences)}. Mixing them would average runs of "
+                         "different experiments: use a new name=..., or delete that folder")
 
 
 def describe_changes(before: dict[str, Any], after: dict[str, Any], limit: int = 3) -> str:

@@ -26,6 +26,7 @@ from periodscan.config import (
 )
 from periodscan.designs import Design, load_design
 from periodscan.engine.tree import RunTree, build_tree
+from periodscan.jobs.fingerprint import fingerprint
 from periodscan.params import seed_list
 
 
@@ -40,6 +41,7 @@ class Prepared:
     identity: str
     seeds: list[int]
     num_classes: int
+    fingerprint: dict[str, Any]  # data, user code and versions (periodscan.jobs.fingerprint)
 
     @property
     def training(self) -> dict[str, Any]:
@@ -71,4 +73,5 @@ def prepare(config: DictConfig | dict | Sequence[str]) -> Prepared:
     identity = training_identity(plain)
     return Prepared(plain=plain, design=design, tree=build_tree(runs, identity),
                     folder=results_folder(plain), identity=identity, seeds=seeds,
-                    num_classes=int(data.num_classes))
+                    num_classes=int(data.num_classes),
+                    fingerprint=fingerprint(plain, data, (*TRAINING_KEYS, "monitor")))
