@@ -9,7 +9,7 @@ __all__ = ["ConfigError", "DataError", "PeriodscanError", "SweepError", "load_sw
 
 
 def run_sweep(config=(), quiet: bool = False):
-    """Run or resume a sweep from override strings, a dict or a composed config (see jobs/sweep.py)."""
+    """Run or resume a sweep from overrides, a dict or a composed config (jobs/sweep.py)."""
     from periodscan.jobs.sweep import run_sweep as _run
 
     return _run(config, quiet=quiet)

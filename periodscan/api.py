@@ -20,8 +20,8 @@ import pandas as pd
 import yaml
 
 from periodscan.analysis.mcnemar import mcnemar_frame
-from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
 from periodscan.analysis.planner import PlanAnswer, check_question, plan_from_table
+from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
 from periodscan.designs import Design, Layout, load_design
 from periodscan.errors import PeriodscanError, SweepError
 from periodscan.ledger import FILE_NAME, Ledger
@@ -193,13 +193,13 @@ class SweepView:
                                else None)
 
     def status(self):
-        """Progress of the sweep: runs and epochs done, failures, ETA (see periodscan.analysis.progress)."""
+        """Progress of the sweep: runs and epochs done, failures, ETA (analysis/progress.py)."""
         from periodscan.analysis.progress import sweep_status
 
         return sweep_status(self)
 
     def report(self, **kwargs):
-        """Write the report files into the sweep folder (see periodscan.views.report.write_report)."""
+        """Write the report files into the sweep folder (views/report.py)."""
         from periodscan.views.report import write_report
 
         return write_report(self, **kwargs)

@@ -50,11 +50,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         args.overrides = [*args.overrides, *extra]
     elif extra:
         parser.error(f"unrecognized arguments: {' '.join(extra)}")
-    warnings.showwarning = show_warning
-    warnings.filterwarnings("default", category=UserWarning, module="periodscan")
     previous = signal.signal(signal.SIGTERM, terminate)
     try:
-        return args.func(args)
+        with warnings.catch_warnings():
+            warnings.showwarning = show_warning
+            warnings.filterwarnings("default", category=UserWarning, module="periodscan")
+            return args.func(args)
     except PeriodscanError as err:
         print(f"periodscan: error: {err}", file=sys.stderr)
         return 2

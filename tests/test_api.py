@@ -12,9 +12,9 @@ from conftest import tiny_config
 from scipy import stats
 
 import periodscan
+from periodscan.analysis.planner import PlanAnswer
 from periodscan.api import load_sweep
 from periodscan.errors import PeriodscanError, SweepError
-from periodscan.analysis.planner import PlanAnswer
 from periodscan.jobs.sweep import run_sweep
 
 

@@ -10,11 +10,11 @@ import pytest
 
 from periodscan.cli import main
 from periodscan.fisher import TOTAL
-from periodscan.jobs.forecast import forecast, trunk_tree
 from periodscan.fisher.rule import Phase, critical_phase, mean_curve, window_scores
-from periodscan.ledger import Ledger
+from periodscan.jobs.forecast import forecast, trunk_tree
 from periodscan.jobs.prepare import prepare
 from periodscan.jobs.sweep import run_sweep
+from periodscan.ledger import Ledger
 
 # --- the rule, on curves worked by hand ---------------------------------------------------------
 

@@ -16,14 +16,14 @@ from pathlib import Path
 
 import pandas as pd
 from omegaconf import DictConfig
-from periodscan.views.figures import sensitivity_curve
-from periodscan.views.report import CURVE_PNG, TABLE_CSV, write_table_csv
 
 from periodscan.designs import Layout
 from periodscan.engine.runner import kill_point
 from periodscan.engine.tree import RunSpec, build_tree
 from periodscan.jobs.folder import JobFolder
 from periodscan.jobs.prepare import Prepared, prepare
+from periodscan.views.figures import sensitivity_curve
+from periodscan.views.report import CURVE_PNG, TABLE_CSV, write_table_csv
 from periodscan.views.words import sweep_title
 
 
