@@ -166,11 +166,13 @@ class SweepView:
         confidence = self.confidence if confidence is None else confidence
         check_question(1, tolerance, confidence, None)
         mcnemar = self.mcnemar if with_mcnemar else None
+        classes = self.meta.get("num_classes")
         if self.design is None:
             return sensitivity_table(self.runs, self.schedule_epochs,
-                                     TableOptions(confidence=confidence, tolerance=tolerance),
-                                     mcnemar)
-        return self.design.table(self.runs, confidence, tolerance, mcnemar)
+                                     TableOptions(confidence=confidence, tolerance=tolerance,
+                                                  num_classes=classes), mcnemar)
+        return self.design.table(self.runs, confidence, tolerance, mcnemar,
+                                 num_classes=classes)
 
     def plan(self, length: int | None = None, tolerance: float | None = None,
              confidence: float | None = None,

@@ -173,13 +173,16 @@ class AdaptiveDesign(Design):
                     & (runs.end_epoch == s.epochs)]
 
     def table(self, runs: pd.DataFrame, confidence: float, tolerance: float | None,
-              mcnemar: pd.DataFrame | None = None) -> pd.DataFrame:
+              mcnemar: pd.DataFrame | None = None, *,
+              num_classes: int | None = None) -> pd.DataFrame:
         """Verdicts only for starts at the seed cap, Holm padded to the whole candidate grid."""
         tolerance = self.settings.tolerance if tolerance is None else float(tolerance)
         if self.seeds_per_start is None:
-            return super().table(runs, confidence, tolerance, mcnemar)
+            return super().table(runs, confidence, tolerance, mcnemar, num_classes=num_classes)
+        options = TableOptions(confidence=confidence, tolerance=tolerance,
+                               family_size=self.holm_family_size(), num_classes=num_classes)
         return adaptive_table(self.runs_used(runs), self.settings, self.seeds_per_start,
-                              confidence, tolerance, self.holm_family_size())
+                              options)
 
     def holm_family_size(self) -> int | None:
         s = self.settings
@@ -223,12 +226,11 @@ def _seeds_from_state(state: Any) -> dict[int, int] | None:
 
 
 def adaptive_table(mine: pd.DataFrame, settings: Settings, seeds: dict[int, int],
-                   confidence: float, tolerance: float, family: int | None) -> pd.DataFrame:
+                   options: TableOptions) -> pd.DataFrame:
     """Capped starts with verdicts; the others with their estimate, undetermined, unconfirmed."""
     cap = settings.seeds_max
     capped = {s for s, n in seeds.items() if n >= cap}
     is_capped = mine.start_epoch.isin(list(capped))
-    options = TableOptions(confidence=confidence, tolerance=tolerance, family_size=family)
     parts = []
     if capped:
         part = sensitivity_table(mine[(mine.is_baseline == 1) | is_capped], settings.epochs,

@@ -70,9 +70,12 @@ class Design:
         return runs[runs.run_id.isin(ids)]
 
     def table(self, runs: pd.DataFrame, confidence: float, tolerance: float | None,
-              mcnemar: pd.DataFrame | None = None) -> pd.DataFrame:
-        """Sensitivity table of this design's runs, verdicts Holm-corrected over its family."""
-        options = TableOptions(confidence=confidence, tolerance=tolerance, family=self.family)
+              mcnemar: pd.DataFrame | None = None, *,
+              num_classes: int | None = None) -> pd.DataFrame:
+        """Sensitivity table of this design's runs, verdicts Holm-corrected over its family;
+        with ``num_classes``, runs that ended at chance level are counted as diverged."""
+        options = TableOptions(confidence=confidence, tolerance=tolerance, family=self.family,
+                               num_classes=num_classes)
         return sensitivity_table(self.runs_used(runs), self.epochs, options, mcnemar)
 
     def holm_family_size(self) -> int | None:

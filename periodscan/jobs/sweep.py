@@ -89,7 +89,8 @@ def train_rounds(job: JobFolder, prep: Prepared,
 def write_outputs(job: JobFolder, prep: Prepared, runs: pd.DataFrame) -> pd.DataFrame:
     """The design's sensitivity table as CSV, and its curve as PNG."""
     plain = prep.plain
-    table = prep.design.table(runs, float(plain.get("confidence", 0.95)), plain.get("tolerance"))
+    table = prep.design.table(runs, float(plain.get("confidence", 0.95)), plain.get("tolerance"),
+                              num_classes=prep.num_classes)
     write_table_csv(table, job.folder / TABLE_CSV)
     if len(table):
         sensitivity_curve(table, job.folder / CURVE_PNG, title=sweep_title(plain),
