@@ -15,6 +15,9 @@ from periodscan.errors import bad_value
 
 #: What each input rank means, for error messages; rank = len(input_shape).
 RANK_NAMES = {2: "a (C, L) signal shape", 3: "a (C, H, W) image shape"}
+#: Built-in model options that take data of a rank, named when a model does not fit the data.
+SUITED = {2: " (for signals use model=cnn1d, cnn1d_bn or mlp)",
+          3: " (for images use model=cnn2d, tiny_resnet or mlp)"}
 
 
 def _is_int(value: object) -> bool:
@@ -84,7 +87,8 @@ def check_input(
         raise bad_value("model.input_shape", "a non-empty list of ints >= 1", input_shape)
     if ranks is not None and len(shape) not in ranks:
         allowed = " or ".join(RANK_NAMES.get(r, f"a rank-{r} shape") for r in ranks)
-        raise bad_value("model.input_shape", f"{allowed} for {model}", shape)
+        hint = SUITED.get(len(shape), "")
+        raise bad_value("model.input_shape", f"{allowed} for {model}{hint}", shape)
     return shape, check_int("num_classes", num_classes, 2)
 
 
