@@ -46,9 +46,13 @@ CREATE TABLE IF NOT EXISTS runs (
     run_id TEXT PRIMARY KEY, seed INTEGER, start_epoch INTEGER, length INTEGER,
     end_epoch INTEGER, is_baseline INTEGER, config_hash TEXT, status TEXT, path TEXT,
     test_acc REAL, test_loss REAL, n_test INTEGER, correct BLOB, diverged_at INTEGER,
-    error TEXT, finished_at REAL
+    error TEXT, finished_at REAL, variant TEXT NOT NULL DEFAULT ''
 );
 """
+#: Columns added to a table after its first release: (table, column, SQL type and default).
+#: A ledger written before them gains them on opening for writing; readers of such a ledger
+#: see the default (runs of an old ledger have no deficit variant: "").
+ADDED_COLUMNS = (("runs", "variant", "TEXT NOT NULL DEFAULT ''"),)
 
 
 class Ledger:
@@ -63,6 +67,7 @@ class Ledger:
         if writable:
             self.conn = sqlite3.connect(self.path, timeout=30)
             self.conn.executescript(SCHEMA)
+            self._add_columns()
             self.conn.commit()
         else:
             self.conn = sqlite3.connect(f"{self.path.resolve().as_uri()}?mode=ro", uri=True,
@@ -75,6 +80,19 @@ class Ledger:
 
     def close(self) -> None:
         self.conn.close()
+
+    def _columns(self, table: str) -> set[str]:
+        return {row[1] for row in self.conn.execute(f"PRAGMA table_info({table})")}
+
+    def _add_columns(self) -> None:
+        """Bring a ledger written by an older periodscan up to :data:`ADDED_COLUMNS`."""
+        for table, column, kind in ADDED_COLUMNS:
+            if column not in self._columns(table):
+                self.conn.execute(f"ALTER TABLE {table} ADD COLUMN {column} {kind}")
+
+    def _variant_sql(self) -> str:
+        """How a SELECT on runs reads the variant column (a constant on an old ledger)."""
+        return "variant" if "variant" in self._columns("runs") else "'' AS variant"
 
     # --- meta -------------------------------------------------------------------------
     def get_meta(self, key: str) -> str | None:
@@ -109,10 +127,10 @@ class Ledger:
             )
             self.conn.executemany(
                 "INSERT OR IGNORE INTO runs (run_id, seed, start_epoch, length, end_epoch, "
-                "is_baseline, config_hash, status, path) "
-                "VALUES (?, ?, ?, ?, ?, ?, ?, 'pending', ?)",
+                "is_baseline, config_hash, status, path, variant) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?, 'pending', ?, ?)",
                 [(r.run_id, r.seed, r.start, r.length, r.end, int(r.is_baseline), config_hash,
-                  ",".join(paths[r.run_id])) for r in runs],
+                  ",".join(paths[r.run_id]), r.variant) for r in runs],
             )
 
     def finished_runs(self) -> set[str]:
@@ -185,10 +203,12 @@ class Ledger:
 
     # --- reading ------------------------------------------------------------------------
     def runs_frame(self) -> pd.DataFrame:
-        """One row per run (without the correctness blob)."""
+        """One row per run (without the correctness blob); ``variant`` is "" for runs of the
+        config's own deficit and for baselines."""
         return pd.read_sql_query(
             "SELECT run_id, seed, start_epoch, length, end_epoch, is_baseline, status, test_acc, "
-            "test_loss, n_test, diverged_at, error, finished_at FROM runs", self.conn)
+            f"test_loss, n_test, diverged_at, error, finished_at, {self._variant_sql()} "
+            "FROM runs", self.conn)
 
     def run_paths_frame(self) -> pd.DataFrame:
         """One row per run: run_id, status, path (its segment ids, comma-separated), error."""
@@ -233,14 +253,15 @@ class Ledger:
                                  params=params)
 
     def _along_paths(self, epochs: pd.DataFrame) -> pd.DataFrame:
-        paths = self.conn.execute("SELECT run_id, seed, start_epoch, length, path FROM runs")
+        paths = self.conn.execute("SELECT run_id, seed, start_epoch, length, path, "
+                                  f"{self._variant_sql()} FROM runs")
         frames = []
-        for run_id, seed, start, length, path in paths:
+        for run_id, seed, start, length, path, variant in paths:
             part = epochs[epochs.segment_id.isin(path.split(","))].assign(
-                run_id=run_id, seed=seed, start_epoch=start, length=length)
+                run_id=run_id, seed=seed, start_epoch=start, length=length, variant=variant)
             frames.append(part)
         if not frames:
-            return epochs.assign(run_id=[], seed=[], start_epoch=[], length=[])
+            return epochs.assign(run_id=[], seed=[], start_epoch=[], length=[], variant=[])
         return pd.concat(frames, ignore_index=True).sort_values(["run_id", "epoch"])
 
     def correctness(self, run_id: str) -> tuple[bytes, int] | None:

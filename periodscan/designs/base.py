@@ -9,12 +9,24 @@ never asks which design it is; a new design is one module in this package plus o
 from __future__ import annotations
 
 from collections.abc import Callable, Iterator
+from dataclasses import replace
 from typing import Any, ClassVar
 
 import pandas as pd
 
 from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
+from periodscan.analysis.variants import variant_table
 from periodscan.designs.layout import WINDOW, Layout
+from periodscan.designs.variants import (
+    FIELDS,
+    Variant,
+    axis_title,
+    design_variants,
+    refuse_variants,
+    stored_variants,
+    variant_state,
+    variants_summary,
+)
 from periodscan.engine.tree import RunSpec, baseline
 from periodscan.params import COUNT, EPOCH, ListOf, Options, Shown, bad_value, check, check_value
 
@@ -53,6 +65,15 @@ class Design:
         self.confidence = float(plain.get("confidence", 0.95))
         self.tolerance = plain.get("tolerance")
         check(self.block, {"kind": [Options((self.kind,))], **self.fields}, "design.")
+        self.variants: list[Variant] = []
+        if set(FIELDS) <= set(self.fields):
+            deficit = plain.get("deficit") or {}
+            self.variants = design_variants(self.block, deficit, stored_variants(state))
+            if self.variants:
+                self.layout = replace(self.layout, variant_axis=axis_title(self.variants, deficit),
+                                      family_words=f"{self.layout.family_words}, per variant")
+        else:
+            refuse_variants(self.block, self.kind)
 
     # --- what to train ----------------------------------------------------------------
     def rounds(self, measured: Measured) -> Iterator[list[RunSpec]]:
@@ -76,15 +97,32 @@ class Design:
         with ``num_classes``, runs that ended at chance level are counted as diverged."""
         options = TableOptions(confidence=confidence, tolerance=tolerance, family=self.family,
                                num_classes=num_classes)
+        if self.variants:
+            return variant_table(self.runs_used(runs), self.epochs, options, mcnemar,
+                                 self.variant_columns())
         return sensitivity_table(self.runs_used(runs), self.epochs, options, mcnemar)
+
+    def variant_keys(self) -> list[str]:
+        """Keys of the deficit variants each window is trained with ([""]: the config's)."""
+        return [v.key for v in self.variants] or [""]
+
+    def variant_blocks(self) -> dict[str, dict[str, Any]]:
+        """Variant key -> the deficit block its runs train with ({} without variants)."""
+        return {v.key: v.deficit for v in self.variants}
+
+    def variant_columns(self) -> list[tuple[str, dict[str, Any]]]:
+        """(key, columns the table gains for it): the deficit's label, or the severity level."""
+        return [(v.key, {"deficit": v.label} if v.param is None else {"severity": v.value})
+                for v in self.variants]
 
     def holm_family_size(self) -> int | None:
         """Hypotheses Holm counts when more than the measured windows (None: just those)."""
         return None
 
     def state(self) -> Any:
-        """What a reader needs beyond the config to rebuild the table (JSON-able), or None."""
-        return None
+        """What a reader needs beyond the config to rebuild the table (JSON-able), or None:
+        the deficit variants, for a design that has them."""
+        return variant_state(self.variants)
 
     @classmethod
     def state_from_meta(cls, meta: dict[str, Any]) -> Any:
@@ -98,7 +136,7 @@ class Design:
     def summary(self) -> str:
         """One line describing the design for reports."""
         return f"{self.kind}: " + ", ".join(f"{k}={v}" for k, v in self.block.items()
-                                             if k != "kind")
+                                             if k != "kind") + variants_summary(self.variants)
 
 
 def budget_ends(block: dict[str, Any], windows: list[tuple[int, int]], epochs: int,
@@ -122,10 +160,12 @@ def budget_ends(block: dict[str, Any], windows: list[tuple[int, int]], epochs: i
 
 
 def runs_for(seeds: list[int], windows: list[tuple[int, int]],
-             ends: dict[tuple[int, int], int]) -> list[RunSpec]:
-    """Every window run and the baselines they are compared with, for each seed."""
+             ends: dict[tuple[int, int], int], variants: list[str] = ("",)) -> list[RunSpec]:
+    """Every window run (once per deficit variant) and the baselines they are compared with,
+    for each seed."""
     runs = []
     for seed in seeds:
-        runs += [RunSpec(seed=seed, start=s, length=n, end=ends[(s, n)]) for s, n in windows]
+        runs += [RunSpec(seed=seed, start=s, length=n, end=ends[(s, n)], variant=v)
+                 for v in variants for s, n in windows]
         runs += [baseline(seed, end) for end in sorted(set(ends.values()))]
     return runs

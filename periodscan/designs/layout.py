@@ -12,6 +12,8 @@ class Layout:
     ``axis`` is the table column the sensitivity curve's x axis uses ("start" for window
     designs, "until" for the removal design, computed as start + length); ``per_length`` says
     whether the curve has one line per deficit length (window designs) or one line in all.
+    ``variant_axis`` names what a sweep of deficit variants varies ("deficit", or "Blur sigma"
+    for severity levels); "" when every window trains the config's deficit.
     """
 
     axis: str = "start"
@@ -21,6 +23,7 @@ class Layout:
     plannable: bool = True
     label_format: str = "[{start}, {end})"
     line_format: str = "{length}-epoch deficit"
+    variant_axis: str = ""
 
     def window_label(self, start: int, length: int) -> str:
         """'[10, 25)' for a window, 'until 25' for a removal run."""

@@ -2,7 +2,9 @@
 
 One length gives a sensitivity curve, several give a start x length grid; either way the runs of
 a seed form one tree of shared segments. Holm's correction runs over the windows of one length,
-the windows that answer one planning question.
+the windows that answer one planning question. ``design.severity`` or ``design.deficits`` trains
+every window with several deficit variants on the same trunk (:mod:`periodscan.designs.variants`);
+Holm then runs over the windows of one length and one variant.
 """
 
 from __future__ import annotations
@@ -10,6 +12,8 @@ from __future__ import annotations
 from typing import ClassVar
 
 from periodscan.designs.base import BUDGETS, EPOCH_LIST, LENGTH_LIST, Design, budget_ends, runs_for
+from periodscan.designs.variants import FIELDS as VARIANT_FIELDS
+from periodscan.designs.variants import variants_summary
 from periodscan.engine.tree import RunSpec
 from periodscan.params import COUNT, Interval, Options, bad_value
 
@@ -23,6 +27,7 @@ class WindowDesign(Design):
         "lengths": [LENGTH_LIST],
         "budget": [Options(BUDGETS)],
         "recovery_epochs": [COUNT, None],
+        **VARIANT_FIELDS,
     }
 
     def windows(self) -> list[tuple[int, int]]:
@@ -37,11 +42,12 @@ class WindowDesign(Design):
     def preview(self) -> list[RunSpec]:
         windows = self.windows()
         ends = budget_ends(self.block, windows, self.epochs, "design.starts")
-        return runs_for(self.seeds, windows, ends)
+        return runs_for(self.seeds, windows, ends, self.variant_keys())
 
     def summary(self) -> str:
         return (f"window: starts {sorted(self.block['starts'])} x lengths "
-                f"{sorted(self.block['lengths'])}, {self.block.get('budget')}")
+                f"{sorted(self.block['lengths'])}, {self.block.get('budget')}"
+                + variants_summary(self.variants))
 
 
 DESIGN = WindowDesign

@@ -104,6 +104,7 @@ class Scheduler:
     threads: int
     monitor: dict[str, Any] | None  # the monitor config every probed job carries
     probe: Monitor | None  # the same monitor built here, to read where it probes
+    variants: dict[str, dict[str, Any]]  # deficit block of each variant key (see RunSpec)
     plan: Plan
     chain: dict[str, int]  # epochs on the longest chain from each segment down to a leaf
     bar: tqdm  # progress in epochs
@@ -117,13 +118,16 @@ class Scheduler:
 
 def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any],
             executor, threads: int, quiet: bool = False,
-            monitor: dict[str, Any] | None = None) -> dict[str, int]:
+            monitor: dict[str, Any] | None = None,
+            variants: dict[str, dict[str, Any]] | None = None) -> dict[str, int]:
     """Train every needed segment; return counts of segments done, failed and diverged.
 
     ``monitor`` (the ``_target_`` config of a :class:`periodscan.monitors.Monitor`) probes
     the clean trunk, and deficit runs too when the monitor's ``on_windows`` is true.
+    ``variants`` maps each deficit variant key of the tree to the deficit block its segments
+    train with in place of ``training["deficit"]``.
     """
-    state = start(tree, ledger, folder, training, threads, monitor, quiet)
+    state = start(tree, ledger, folder, training, threads, monitor, quiet, variants)
     try:
         while state.waiting or state.running:
             submit_ready(state, executor)
@@ -139,7 +143,8 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
 
 
 def start(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any], threads: int,
-          monitor: dict[str, Any] | None, quiet: bool) -> Scheduler:
+          monitor: dict[str, Any] | None, quiet: bool,
+          variants: dict[str, dict[str, Any]] | None = None) -> Scheduler:
     """Plan the work, build the monitor once (to read its settings), open the progress bar."""
     plan = plan_work(tree, ledger, folder)
     probe = build_monitor(monitor)
@@ -148,7 +153,7 @@ def start(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any],
                dynamic_ncols=True, smoothing=0.1)
     return Scheduler(tree=tree, ledger=ledger, folder=folder, training=training,
                      threads=threads, monitor=monitor if probe is not None else None,
-                     probe=probe, plan=plan,
+                     probe=probe, variants=dict(variants or {}), plan=plan,
                      chain={sid: tree.critical_path(sid) for sid in plan.needed},
                      bar=bar, waiting=set(plan.needed), counts=dict.fromkeys(STATUSES, 0))
 
@@ -198,10 +203,18 @@ def make_job(state: Scheduler, sid: str) -> SegmentJob:
         if blob is None:
             blob = state.plan.available[seg.parent].read_bytes()
     probed = monitored(state.tree, sid, state.probe)
-    return SegmentJob(segment_id=sid, config=state.training, seed=seg.seed, begin=seg.begin,
-                      end=seg.end, deficit_on=seg.deficit_on, parent_checkpoint=blob,
+    return SegmentJob(segment_id=sid, config=job_config(state, seg.variant), seed=seg.seed,
+                      begin=seg.begin, end=seg.end, deficit_on=seg.deficit_on,
+                      parent_checkpoint=blob,
                       keep_checkpoint=bool(seg.children), evaluate_at_end=bool(seg.finishes),
                       threads=state.threads, monitor=state.monitor if probed else None)
+
+
+def job_config(state: Scheduler, variant: str) -> dict[str, Any]:
+    """The training config of a segment: the variant's deficit block in place of the config's."""
+    if not variant:
+        return state.training
+    return {**state.training, "deficit": state.variants[variant]}
 
 
 def collect_result(state: Scheduler, future) -> SegmentResult | None:

@@ -91,7 +91,8 @@ class JobFolder:
                              self.prep.identity)
         self._announce_reuse(tree)
         return execute(tree, self.ledger, self.folder, self.prep.training, self.executor,
-                       self.prep.threads, quiet=self.quiet, monitor=monitor)
+                       self.prep.threads, quiet=self.quiet, monitor=monitor,
+                       variants=self.prep.design.variant_blocks())
 
     def _announce_reuse(self, tree: RunTree) -> None:
         """Say when a rerun resumes: how many runs are already done, how much is left."""
@@ -139,11 +140,11 @@ def open_ledger(prep: Prepared) -> Ledger:
         before = json.loads(ledger.get_meta("training") or "{}")
         ledger.close()
         raise SweepError(f"results folder {prep.folder} holds a sweep trained under another "
-                         f"config ({describe_changes(before, prep.training)}); use a new "
+                         f"config ({describe_changes(before, prep.covered)}); use a new "
                          "name=... or delete that folder")
     check_fingerprint(ledger, prep)
     if known is None:
-        ledger.set_meta(identity=prep.identity, training=prep.training, created=time.time())
+        ledger.set_meta(identity=prep.identity, training=prep.covered, created=time.time())
     return ledger
 
 

@@ -25,8 +25,10 @@ from periodscan.config import (
     training_identity,
 )
 from periodscan.designs import Design, load_design
+from periodscan.designs.variants import variant_identity
 from periodscan.engine.tree import RunTree, build_tree
 from periodscan.jobs.fingerprint import fingerprint
+from periodscan.jobs.variants import check_variants
 from periodscan.params import seed_list
 
 
@@ -47,6 +49,13 @@ class Prepared:
     def training(self) -> dict[str, Any]:
         """The config blocks that change the numbers (what a worker trains from)."""
         return {k: self.plain[k] for k in TRAINING_KEYS}
+
+    @property
+    def covered(self) -> dict[str, Any]:
+        """What the identity covers, for messages: the training blocks, plus the deficit block
+        of every variant when the design has variants."""
+        variants = self.design.variant_blocks()
+        return {**self.training, "variants": variants} if variants else self.training
 
     @property
     def threads(self) -> int:
@@ -70,8 +79,11 @@ def prepare(config: DictConfig | dict | Sequence[str]) -> Prepared:
     design = load_design(plain, seeds)
     runs = design.preview()
     data = check_components(plain)
-    identity = training_identity(plain)
+    variants = design.variant_blocks()
+    check_variants(plain, variants)
+    identity = variant_identity(training_identity(plain), variants)
     return Prepared(plain=plain, design=design, tree=build_tree(runs, identity),
                     folder=results_folder(plain), identity=identity, seeds=seeds,
                     num_classes=int(data.num_classes),
-                    fingerprint=fingerprint(plain, data, (*TRAINING_KEYS, "monitor")))
+                    fingerprint=fingerprint({**plain, "variants": variants}, data,
+                                            (*TRAINING_KEYS, "monitor", "variants")))
