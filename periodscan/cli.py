@@ -28,6 +28,7 @@ COMMANDS = (
     "status",
     "report",
     "plan",
+    "compare",
     "export",
 )
 
