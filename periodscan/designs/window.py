@@ -9,8 +9,11 @@ Holm then runs over the windows of one length and one variant.
 
 from __future__ import annotations
 
-from typing import ClassVar
+from typing import Any, ClassVar
 
+import pandas as pd
+
+from periodscan.analysis.variant_plan import PlanSettings, variant_plan
 from periodscan.designs.base import BUDGETS, EPOCH_LIST, LENGTH_LIST, Design, budget_ends, runs_for
 from periodscan.designs.variants import FIELDS as VARIANT_FIELDS
 from periodscan.designs.variants import variants_summary
@@ -43,6 +46,20 @@ class WindowDesign(Design):
         windows = self.windows()
         ends = budget_ends(self.block, windows, self.epochs, "design.starts")
         return runs_for(self.seeds, windows, ends, self.variant_keys())
+
+    def plan(self, runs: pd.DataFrame, table: pd.DataFrame, *, length: int | None = None,
+             production_epochs: int | None = None, sweep: str = "") -> Any:
+        """Where may a deficit of ``length`` epochs go; with deficit variants, the answer of
+        every variant and across them (:class:`periodscan.analysis.variant_plan.VariantPlan`)."""
+        if not self.variants:
+            return super().plan(runs, table, length=length,
+                                production_epochs=production_epochs, sweep=sweep)
+        settings = PlanSettings(schedule_epochs=self.epochs, production_epochs=production_epochs,
+                                budget=self.block.get("budget", "fixed_total"),
+                                recovery_epochs=self.block.get("recovery_epochs"))
+        return variant_plan(runs, table, length, settings, sweep=sweep,
+                            axis=self.layout.variant_axis,
+                            labels={v.key: v.label for v in self.variants})
 
     def summary(self) -> str:
         return (f"window: starts {sorted(self.block['starts'])} x lengths "

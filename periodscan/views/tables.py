@@ -65,6 +65,10 @@ def format_table(table: pd.DataFrame, layout: Layout = WINDOW) -> str:
     """
     if table.empty:
         return "(no finished windows yet)"
+    if "variant" in table:  # a sweep of deficit variants: one block per variant
+        from periodscan.views.variants import format_variant_table
+
+        return format_variant_table(table, layout)
     level = int(round(100 * table.confidence.iloc[0]))
     verdicts = "verdict" in table
     head = (f"{'window':>12} {'seeds':>5} {'baseline %':>10} {'run %':>7} "
