@@ -19,12 +19,14 @@ from periodscan.deficits.builtin import (
     Occlusion,
     VerticalFlip,
 )
+from periodscan.deficits.curriculum import Curriculum
 
 __all__ = [
     "Blur",
     "ClassDropout",
     "Contrast",
     "Crop",
+    "Curriculum",
     "DataOutage",
     "Deficit",
     "Downsample",
