@@ -20,7 +20,7 @@ import pandas as pd
 import yaml
 
 from periodscan.analysis.mcnemar import mcnemar_frame
-from periodscan.analysis.planner import PlanAnswer, check_question, plan_from_table
+from periodscan.analysis.planner import check_question, plan_from_table
 from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
 from periodscan.designs import Design, Layout, load_design
 from periodscan.errors import PeriodscanError, SweepError
@@ -175,24 +175,20 @@ class SweepView:
                                  num_classes=classes)
 
     def plan(self, length: int | None = None, tolerance: float | None = None,
-             confidence: float | None = None,
-             production_epochs: int | None = None) -> PlanAnswer:
-        """The planner's answer for a deficit of ``length`` epochs (default: shortest measured)."""
-        if not self.layout.plannable:
-            raise SweepError(f"plan answers window designs (where may a deficit of L epochs "
-                             f"go?); this sweep's design is {self.design_summary}: read its "
-                             "table instead")
+             confidence: float | None = None, production_epochs: int | None = None) -> Any:
+        """The design's answer to its planning question (:meth:`Design.plan`): for window
+        designs a :class:`PlanAnswer` for a deficit of ``length`` epochs (default: shortest
+        measured)."""
         table = self.table(tolerance, confidence, with_mcnemar=False)
+        if self.design is not None:
+            return self.design.plan(self.runs, table, length=length,
+                                    production_epochs=production_epochs, sweep=self.name)
         if length is None:
             if table.empty:
                 raise SweepError(f"sweep {self.name!r} has no window runs yet")
             length = int(table.length.min())
-        block = self.config.get("design") or {}
         return plan_from_table(table, length, self.schedule_epochs, production_epochs,
-                               sweep=self.name, budget=block.get("budget", "fixed_total"),
-                               recovery_epochs=block.get("recovery_epochs"),
-                               holm_family=self.design.holm_family_size() if self.design
-                               else None)
+                               sweep=self.name)
 
     def status(self):
         """Progress of the sweep: runs and epochs done, failures, ETA (analysis/progress.py)."""

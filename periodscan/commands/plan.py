@@ -35,9 +35,9 @@ def register(verbs) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from periodscan.api import load_sweep
-    from periodscan.views.plan import format_plan, plan_json
+    from periodscan.views.answers import answer_json, answer_text
 
     with load_sweep(args.sweep, args.results_dir) as view:
         answer = view.plan(args.length, args.tolerance, args.confidence, args.production_epochs)
-    print(plan_json(answer) if args.json else format_plan(answer))
+    print(answer_json(answer) if args.json else answer_text(answer))
     return 0

@@ -14,6 +14,7 @@ from typing import Any, ClassVar
 
 import pandas as pd
 
+from periodscan.analysis.planner import plan_from_table
 from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
 from periodscan.analysis.variants import variant_table
 from periodscan.designs.layout import WINDOW, Layout
@@ -28,6 +29,7 @@ from periodscan.designs.variants import (
     variants_summary,
 )
 from periodscan.engine.tree import RunSpec, baseline
+from periodscan.errors import SweepError
 from periodscan.params import COUNT, EPOCH, ListOf, Options, Shown, bad_value, check, check_value
 
 #: Budgets: every run ends at the last epoch, or gets a fixed number of clean epochs after.
@@ -118,6 +120,24 @@ class Design:
     def holm_family_size(self) -> int | None:
         """Hypotheses Holm counts when more than the measured windows (None: just those)."""
         return None
+
+    def plan(self, runs: pd.DataFrame, table: pd.DataFrame, *, length: int | None = None,
+             production_epochs: int | None = None, sweep: str = "") -> Any:
+        """The design's answer to its planning question, from its table (made with a
+        tolerance) and the runs it rests on. Window designs: where may a deficit of
+        ``length`` epochs go (default: the shortest measured length)?"""
+        if not self.layout.plannable:
+            raise SweepError(f"plan answers window designs (where may a deficit of L epochs "
+                             f"go?); this sweep's design is {self.summary()}: read its table "
+                             "instead")
+        if length is None:
+            if table.empty:
+                raise SweepError(f"sweep {sweep!r} has no window runs yet")
+            length = int(table.length.min())
+        return plan_from_table(table, length, self.epochs, production_epochs, sweep=sweep,
+                               budget=self.block.get("budget", "fixed_total"),
+                               recovery_epochs=self.block.get("recovery_epochs"),
+                               holm_family=self.holm_family_size())
 
     def state(self) -> Any:
         """What a reader needs beyond the config to rebuild the table (JSON-able), or None:

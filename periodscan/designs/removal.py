@@ -9,10 +9,13 @@ from __future__ import annotations
 
 from typing import ClassVar
 
+import pandas as pd
+
+from periodscan.analysis.onset_plan import EpochAnswer, removal_plan
 from periodscan.designs.base import BUDGETS, LENGTH_LIST, Design, budget_ends, runs_for
 from periodscan.designs.layout import REMOVAL, Layout
 from periodscan.engine.tree import RunSpec
-from periodscan.params import COUNT, Options
+from periodscan.params import COUNT, Options, bad_value
 
 
 class RemovalDesign(Design):
@@ -31,6 +34,18 @@ class RemovalDesign(Design):
         windows = [(0, t) for t in sorted(self.block["until"])]
         ends = budget_ends(self.block, windows, self.epochs, "design.until")
         return runs_for(self.seeds, windows, ends)
+
+    def plan(self, runs: pd.DataFrame, table: pd.DataFrame, *, length: int | None = None,
+             production_epochs: int | None = None, sweep: str = "") -> EpochAnswer:
+        """The latest epoch the deficit may last to with damage within the tolerance (when
+        may a curriculum end?); the removal epochs are the design's, so no length is asked."""
+        if length is not None:
+            raise bad_value("length", "None for a removal sweep (its deficit lengths are the "
+                            "design's until epochs)", length)
+        return removal_plan(table, schedule_epochs=self.epochs, sweep=sweep,
+                            production_epochs=production_epochs,
+                            budget=self.block.get("budget", "fixed_total"),
+                            recovery_epochs=self.block.get("recovery_epochs"))
 
     def summary(self) -> str:
         return (f"removal: deficit from epoch 0 until {sorted(self.block['until'])}, "
