@@ -29,6 +29,7 @@ from periodscan.api import load_sweep  # noqa: E402
 from periodscan.cli import main  # noqa: E402
 from periodscan.engine.runner import KILL_ENV  # noqa: E402
 from periodscan.jobs.sweep import run_sweep  # noqa: E402
+from periodscan.views import tensorboard as tensorboard_view  # noqa: E402
 from periodscan.views.tables import format_table  # noqa: E402
 from periodscan.views.tensorboard import EPOCH_TAGS, MARKER  # noqa: E402
 
@@ -157,6 +158,21 @@ def test_default_folder_and_a_second_export_replaces_the_first(sweeps, tmp_path,
     assert _series(_read(run), "accuracy/test")[0] == list(range(1, 9))  # not doubled
     leftovers = [p.name for p in folder.iterdir() if p.name.startswith(".tensorboard")]
     assert leftovers == [] and (out / MARKER).is_file()
+
+
+def test_a_failed_export_leaves_the_last_one_as_it_was(exported, tmp_path, monkeypatch):
+    out = tmp_path / "board"
+    shutil.copytree(exported[1], out)
+    before = {p.relative_to(out): p.read_bytes() for p in out.rglob("*") if p.is_file()}
+
+    def broken(*args, **kwargs):
+        raise OSError("disk full")  # invented failure half way through the writing
+
+    monkeypatch.setattr(tensorboard_view, "write_sweep_summary", broken)
+    with load_sweep(exported[0]) as view, pytest.raises(OSError, match="disk full"):
+        tensorboard_view.write_tensorboard(view, out)
+    after = {p.relative_to(out): p.read_bytes() for p in out.rglob("*") if p.is_file()}
+    assert after == before and [p.name for p in tmp_path.iterdir()] == ["board"]
 
 
 def test_a_partial_sweep_exports_what_it_has(sweeps, tmp_path):
