@@ -13,7 +13,10 @@ def register(verbs) -> None:
         description="Answer a maintenance question from a sweep: for a deficit of --length\n"
                     "epochs and a --tolerance in accuracy points, which window starts are safe,\n"
                     "which are critical, the earliest start from which every later start is\n"
-                    "safe, and the expected damage in the best slot.",
+                    "safe, and the expected damage in the best slot. An onset sweep answers\n"
+                    "the latest epoch at which the change costs at most the tolerance more\n"
+                    "than making it at epoch 0; a removal sweep the latest epoch the deficit\n"
+                    "(a curriculum, say) may last to.",
         epilog="example: periodscan plan demo --length 15 --tolerance 1.0 "
                "--production-epochs 180",
         formatter_class=argparse.RawDescriptionHelpFormatter)
