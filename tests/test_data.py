@@ -16,6 +16,7 @@ from omegaconf import OmegaConf
 from PIL import Image
 
 from periodscan.data import (
+    StreamData,
     TensorData,
     load_digits,
     load_image_folder,
@@ -624,9 +625,13 @@ CONFIGS = sorted(glob.glob(os.path.join(CONFIG_DIR, "*.yaml")))
 def _fill_required(name: str, tmp_path) -> dict:
     if name == "npz":
         return {"path": _npz_case(tmp_path, x_train=X, y_train=Y)}
-    if name == "image_folder":
+    if name in ("image_folder", "image_folder_stream"):
         _write_tree(tmp_path / "img")
         return {"root": str(tmp_path / "img")}
+    if name == "dataset":  # torchvision's FakeData: a map-style Dataset without `targets`
+        return {"train": {"_target_": "torchvision.datasets.FakeData", "size": 60,
+                          "image_size": [3, 8, 8], "num_classes": 3,
+                          "transform": {"_target_": "torchvision.transforms.PILToTensor"}}}
     if name == "torchvision":
         _fake_mnist(tmp_path / "tv")
         return {"root": str(tmp_path / "tv"), "name": "MNIST"}
@@ -641,8 +646,9 @@ def test_every_data_config_instantiates(path, tmp_path):
     if required:
         cfg = OmegaConf.merge(cfg, _fill_required(name, tmp_path))
     data = instantiate(cfg)
-    assert isinstance(data, TensorData)
-    assert data.x_train.dtype == torch.float32 and data.y_train.dtype == torch.int64
+    assert isinstance(data, (TensorData, StreamData))
+    x, y = data.train_examples(torch.arange(2))
+    assert x.dtype == torch.float32 and y.dtype == data.y_train.dtype == torch.int64
 
 
 @pytest.mark.parametrize("path", CONFIGS, ids=[os.path.basename(p) for p in CONFIGS])
@@ -659,7 +665,7 @@ def test_every_data_config_takes_the_tiny_preset_sizes(path, tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # a cap may leave a class out
         data = instantiate(OmegaConf.merge(cfg, sizes))
-    assert len(data.x_train) <= 40 and len(data.x_test) <= 12
+    assert len(data.y_train) <= 40 and len(data.y_test) <= 12
 
 
 def test_builtin_configs_exist():

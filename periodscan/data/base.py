@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import torch
@@ -65,21 +66,45 @@ class TensorData:
                 f"{self.name}: train examples have shape {tuple(self.x_train.shape[1:])} but test "
                 f"examples {tuple(self.x_test.shape[1:])}; they must match"
             )
-        labels = torch.cat([self.y_train, self.y_test])
-        if labels.min() < 0 or labels.max() >= self.num_classes:
-            raise DataError(
-                f"{self.name}: labels must lie in [0, {self.num_classes}); "
-                f"got range [{int(labels.min())}, {int(labels.max())}]"
-            )
-        present = torch.unique(self.y_train)
-        if present.numel() < 2:
-            raise DataError(
-                f"{self.name}: the training split holds a single class; need at least 2"
-            )
-        if present.numel() < self.num_classes:
-            message = _absent_classes(self.name, present.tolist(),
-                                      torch.unique(self.y_test).tolist(), self.num_classes)
-            warnings.warn(message, UserWarning, stacklevel=2)
+        check_labels(self.name, self.y_train, self.y_test, self.num_classes)
+
+    def train_examples(self, idx: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+        """Training inputs (B, C, *spatial) and labels (B,) at indices ``idx``."""
+        return self.x_train[idx], self.y_train[idx]
+
+    def train_batches(
+        self, batches: list[torch.Tensor]
+    ) -> Iterator[tuple[torch.Tensor, torch.Tensor]]:
+        """(inputs, labels) of each batch of training indices, in the order given."""
+        for idx in batches:
+            yield self.x_train[idx], self.y_train[idx]
+
+    def test_batches(self, size: int) -> Iterator[tuple[torch.Tensor, torch.Tensor]]:
+        """The held-out split in order, ``size`` examples at a time."""
+        for begin in range(0, len(self.y_test), size):
+            yield self.x_test[begin : begin + size], self.y_test[begin : begin + size]
+
+
+def check_labels(name: str, y_train: torch.Tensor, y_test: torch.Tensor,
+                 num_classes: int) -> None:
+    """Raise DataError unless labels lie in [0, num_classes) and train holds 2+ classes.
+
+    A class in ``[0, num_classes)`` with no training example only warns: the data is usable
+    as given, but the class count is most likely not what the labels meant.
+    """
+    labels = torch.cat([y_train, y_test])
+    if labels.min() < 0 or labels.max() >= num_classes:
+        raise DataError(
+            f"{name}: labels must lie in [0, {num_classes}); "
+            f"got range [{int(labels.min())}, {int(labels.max())}]"
+        )
+    present = torch.unique(y_train)
+    if present.numel() < 2:
+        raise DataError(f"{name}: the training split holds a single class; need at least 2")
+    if present.numel() < num_classes:
+        message = _absent_classes(name, present.tolist(), torch.unique(y_test).tolist(),
+                                  num_classes)
+        warnings.warn(message, UserWarning, stacklevel=3)
 
 
 def _absent_classes(name: str, train: list[int], test: list[int], num_classes: int) -> str:

@@ -62,8 +62,8 @@ def load_image_folder(
     n_train, n_test = check_caps(n_train, n_test)
     mode = "L" if grayscale else "RGB"
 
-    classes = _class_names(root, "data.root")
-    files, y = _list_images(root, classes)
+    classes = class_names(root, "data.root")
+    files, y = list_images(root, classes)
     if test_root is None:
         train, test = stratified_split(y, test_fraction, split_seed, f"data.root '{root}'")
         train, test = cap_split(train, test, n_train, n_test, split_seed)
@@ -73,7 +73,7 @@ def load_image_folder(
         y_train, y_test = y[train], y[test]
     else:
         test_root = existing_path("data.test_root", test_root, folder=True)
-        test_files, y_test = _test_images(test_root, classes)
+        test_files, y_test = held_out_images(test_root, classes)
         train, test = cap_split(
             np.arange(len(y)), np.arange(len(y_test)), n_train, n_test, split_seed
         )
@@ -86,21 +86,21 @@ def load_image_folder(
     return TensorData(x_train, y_train, x_test, y_test, num_classes=len(classes), name=name)
 
 
-def _test_images(test_root: str, classes: list[str]) -> tuple[list[str], np.ndarray]:
+def held_out_images(test_root: str, classes: list[str]) -> tuple[list[str], np.ndarray]:
     """Image paths of ``test_root`` and their labels, numbered by the classes of ``root``."""
-    unknown = sorted(set(_class_names(test_root, "data.test_root")) - set(classes))
+    unknown = sorted(set(class_names(test_root, "data.test_root")) - set(classes))
     if unknown:
         raise DataError(
             f"data.test_root: class folders {unknown} in '{test_root}' are not among the "
             f"classes of data.root: {classes}"
         )
     test_classes = [c for c in classes if os.path.isdir(os.path.join(test_root, c))]
-    test_files, test_y = _list_images(test_root, test_classes)
+    test_files, test_y = list_images(test_root, test_classes)
     labels = np.array([classes.index(test_classes[i]) for i in test_y], dtype=np.int64)
     return test_files, labels
 
 
-def _class_names(root: str, field: str) -> list[str]:
+def class_names(root: str, field: str) -> list[str]:
     names = sorted(
         e.name for e in os.scandir(root) if e.is_dir() and not e.name.startswith(".")
     )
@@ -112,7 +112,7 @@ def _class_names(root: str, field: str) -> list[str]:
     return names
 
 
-def _list_images(root: str, classes: list[str]) -> tuple[list[str], np.ndarray]:
+def list_images(root: str, classes: list[str]) -> tuple[list[str], np.ndarray]:
     """Image paths in sorted order and their class indices (positions in ``classes``)."""
     files, labels = [], []
     for label, name in enumerate(classes):
@@ -145,26 +145,32 @@ def _read_images(
     """
     arrays = []
     for path in files:
-        try:
-            with Image.open(path) as im:
-                im = im.convert(mode)
-                if image_size is not None:
-                    im = im.resize((image_size, image_size), Image.Resampling.BILINEAR)
-                a = np.asarray(im, dtype=np.float32)
-        except (OSError, SyntaxError, ValueError, Image.DecompressionBombError) as err:
-            raise DataError(f"{field}: cannot read image '{path}' ({err})") from None
-        a = a[None] if a.ndim == 2 else np.moveaxis(a, 2, 0)
+        a = read_image(path, mode, image_size, field)
         if shape is None:
             first, shape = path, a.shape
         elif a.shape != shape:
             raise DataError(
                 f"data.image_size is null (keep native size) but images differ in size: "
-                f"'{first}' is {_hw(shape)}, '{path}' is {_hw(a.shape)}; set data.image_size "
+                f"'{first}' is {hw(shape)}, '{path}' is {hw(a.shape)}; set data.image_size "
                 f"to resize them all"
             )
         arrays.append(a)
     return np.stack(arrays)
 
 
-def _hw(shape: tuple[int, ...]) -> str:
+def read_image(path: str, mode: str, image_size: int | None, field: str) -> np.ndarray:
+    """One image as float32 (C, H, W) with integer values in [0, 255], converted and resized."""
+    try:
+        with Image.open(path) as im:
+            im = im.convert(mode)
+            if image_size is not None:
+                im = im.resize((image_size, image_size), Image.Resampling.BILINEAR)
+            a = np.asarray(im, dtype=np.float32)
+    except (OSError, SyntaxError, ValueError, Image.DecompressionBombError) as err:
+        raise DataError(f"{field}: cannot read image '{path}' ({err})") from None
+    return a[None] if a.ndim == 2 else np.moveaxis(a, 2, 0)
+
+
+def hw(shape: tuple[int, ...]) -> str:
+    """A (C, H, W) shape as the "width x height" people read image sizes in."""
     return f"{shape[2]}x{shape[1]} (width x height)"
