@@ -15,8 +15,10 @@ from statsmodels.stats.weightstats import CompareMeans, DescrStatsW
 from periodscan.analysis.compare import (
     PAIRED,
     WELCH,
+    backed,
     compare_sweeps,
     edges_frame,
+    located,
     paired_difference,
     welch_difference,
 )
@@ -84,6 +86,7 @@ def test_edges_follow_boundaries_and_say_when_they_move():
                       "b": ["critical", "critical", "critical", "safe"]})
     edges, moves = edges_frame(curves, [15])
     assert list(edges.critical_until) == [10, 20] and list(edges.safe_from) == [20, 30]
+    assert edges.located.all()
     for sweep, group in curves.groupby("sweep"):  # the adaptive design's own reading
         assert boundaries(group) == tuple(edges[edges.sweep == sweep].iloc[0][
             ["critical_until", "safe_from"]])
@@ -92,6 +95,7 @@ def test_edges_follow_boundaries_and_say_when_they_move():
                      "b": ["critical", "critical", "safe", "safe"]})
     edges, moves = edges_frame(still, [15])
     assert list(edges.critical_until) == [0, 10] and list(edges.safe_from) == [20, 20]
+    assert list(edges.located) == [False, True]  # a's start 10 is undetermined
     assert moves.critical_until_moves.item() and not moves.safe_from_moves.item()
 
 
@@ -106,6 +110,24 @@ def test_edges_use_only_starts_every_sweep_measured():
     edges, _ = edges_frame(none, [15])
     assert edges.critical_until.tolist() == [None, None]
     assert edges.safe_from.tolist() == [None, 0]
+
+
+def test_located_needs_the_edge_between_neighbouring_starts():
+    starts = [0, 10, 20, 30]
+    assert located(starts, 10, 20) and located(starts, None, 0) and located(starts, 30, None)
+    assert not located(starts, 0, 20) and not located(starts, None, None)
+    assert not located(starts, None, 10) and not located([], None, None)
+
+
+def test_a_move_is_backed_only_by_a_damage_difference_near_the_edge():
+    edges = pd.DataFrame({"critical_until": [10, 20], "safe_from": [20, 30]}, dtype=object)
+    change = {"start": 20, "verdict_against": "safe", "verdict": "critical"}
+    assert backed(edges, pd.DataFrame([{**change, "differs": True}]))
+    assert not backed(edges, pd.DataFrame([{**change, "differs": False}]))
+    far = pd.DataFrame([{**change, "start": 0, "differs": True}])  # outside [10, 30]
+    assert not backed(edges, far)
+    nothing = pd.DataFrame({"critical_until": [None], "safe_from": [None]}, dtype=object)
+    assert not backed(nothing, pd.DataFrame([{**change, "differs": True}]))
 
 
 # --- end to end on the tiny preset ------------------------------------------------------------
@@ -177,7 +199,7 @@ def test_compare_verb_prints_text_json_and_writes_the_figure(ladder, capsys):
     folders = [str(ladder / name) for name in LADDER]
     figure = ladder / "out" / "ladder.png"
     assert main(["compare", *folders, "--tolerance", "1", "--figure", str(figure)]) == 0
-    text = capsys.readouterr().out
+    text = " ".join(capsys.readouterr().out.split())  # long lines are wrapped
     for words in ("comparing 3 sweeps", "model.channels 8 -> 16", "edge of the critical window",
                   "pairing: w16 vs w8: Welch's t", "evidence, not proof", "confirm on the real "
                   "pipeline", f"figure: {figure}"):
@@ -189,6 +211,11 @@ def test_compare_verb_prints_text_json_and_writes_the_figure(ladder, capsys):
     assert {d["against"] for d in record["differences"]} == {"w8"}
     assert record["figure"] is None and "evidence, not proof" in record["caution"]
     assert len(record["edges"]) == 3 and isinstance(record["edge_moves"][0]["moves"], bool)
+    assert isinstance(record["edge_moves"][0]["backed"], bool)
+    verdict = {(r["sweep"], r["start"]): r["verdict"] for r in record["curves"]}
+    expected = [(d["sweep"], d["start"]) for d in record["differences"]
+                if verdict[d["sweep"], d["start"]] != verdict[d["against"], d["start"]]]
+    assert [(v["sweep"], v["start"]) for v in record["verdict_changes"]] == expected
     assert main(["compare", "w8", "w16", "--results-dir", str(ladder), "--no-figure"]) == 0
     default = ladder / "compare-w8-w16.png"
     assert main(["compare", "w8", "w16", "--results-dir", str(ladder)]) == 0

@@ -200,7 +200,10 @@ class Comparison:
     tolerance and confidence). ``differences``: per shared window, ``sweep`` minus ``against``
     in damage points with its interval. ``edges``: per sweep and length, the latest critical
     start and the start from which all later ones are safe, on the ``starts`` every sweep
-    measured (``moves`` per length in ``edge_moves``).
+    measured, and whether undetermined starts blur it (``located``). ``edge_moves``: per
+    length, whether the edge ``moves`` between sweeps and whether it is ``backed`` by a damage
+    difference whose interval excludes 0 at a start whose verdict changes (``changes`` lists
+    those starts).
     """
 
     rungs: list[Rung]
@@ -214,6 +217,7 @@ class Comparison:
     differences: pd.DataFrame
     edges: pd.DataFrame
     edge_moves: pd.DataFrame
+    changes: pd.DataFrame
 
 
 CURVE_COLUMNS = ["sweep", "start", "length", "x", "seeds", "baseline_acc", "damage",
@@ -292,12 +296,26 @@ def window_differences(damage_a: pd.DataFrame, damage_b: pd.DataFrame, pair: Pai
     return rows
 
 
+def located(starts: list[int], critical_until: int | None, safe_from: int | None) -> bool:
+    """True when no undetermined start lies at the edge: the latest critical start and the
+    first of the trailing safe ones are neighbours among ``starts`` (or every start is safe,
+    or the critical stretch reaches the last start)."""
+    if not starts:
+        return False
+    if safe_from is None:
+        return critical_until == starts[-1]
+    if critical_until is None:
+        return safe_from == starts[0]
+    return starts.index(safe_from) == starts.index(critical_until) + 1
+
+
 def edges_frame(curves: pd.DataFrame, lengths: list[int]) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Per sweep and length the critical edge on the shared starts; per length, whether it moves.
 
     ``critical_until`` is the latest critical start, ``safe_from`` the earliest start from
     which every later shared start is safe (None: no such start), as the adaptive design's
-    :func:`periodscan.designs.adaptive_search.boundaries` reads them.
+    :func:`periodscan.designs.adaptive_search.boundaries` reads them; ``located`` as
+    :func:`located`.
     """
     rows, moves = [], []
     for length in lengths:
@@ -308,16 +326,46 @@ def edges_frame(curves: pd.DataFrame, lengths: list[int]) -> tuple[pd.DataFrame,
             critical_until, safe_from = boundaries(mine[mine.sweep == label])
             found.append((critical_until, safe_from))
             rows.append({"sweep": label, "length": length, "critical_until": critical_until,
-                         "safe_from": safe_from})
+                         "safe_from": safe_from,
+                         "located": located(starts, critical_until, safe_from)})
         moves.append({"length": length, "starts": starts,
                       "critical_until_moves": len({f[0] for f in found}) > 1,
                       "safe_from_moves": len({f[1] for f in found}) > 1})
     edge_moves = pd.DataFrame(moves)
     edge_moves["moves"] = edge_moves.critical_until_moves | edge_moves.safe_from_moves
-    edges = pd.DataFrame(rows, columns=["sweep", "length", "critical_until", "safe_from"])
+    edges = pd.DataFrame(rows, columns=["sweep", "length", "critical_until", "safe_from",
+                                        "located"])
     for column in ("critical_until", "safe_from"):  # None stays None, not NaN
         edges[column] = pd.Series([r[column] for r in rows], index=edges.index, dtype=object)
     return edges, edge_moves
+
+
+def verdict_changes(curves: pd.DataFrame, differences: pd.DataFrame) -> pd.DataFrame:
+    """Shared windows whose verdict differs between a sweep and the one it is compared with,
+    with the difference of damage measured there (does the data back the change?)."""
+    verdicts = curves.set_index(["sweep", "start", "length"]).verdict
+    rows = []
+    for r in differences.itertuples():
+        before = verdicts.get((r.against, r.start, r.length))
+        after = verdicts.get((r.sweep, r.start, r.length))
+        if before != after:
+            rows.append({"sweep": r.sweep, "against": r.against, "start": r.start,
+                         "length": r.length, "verdict_against": before, "verdict": after,
+                         "difference": r.difference, "low": r.low, "high": r.high,
+                         "differs": r.differs})
+    return pd.DataFrame(rows, columns=["sweep", "against", "start", "length",
+                                       "verdict_against", "verdict", "difference", "low",
+                                       "high", "differs"])
+
+
+def backed(edges: pd.DataFrame, changes: pd.DataFrame) -> bool:
+    """Whether, at some start between the earliest and the latest edge any sweep reads, a
+    verdict changes with a difference of damage whose interval excludes 0."""
+    values = [int(v) for v in (*edges.critical_until, *edges.safe_from) if v is not None]
+    if not values:
+        return False
+    near = changes[(changes.start >= min(values)) & (changes.start <= max(values))]
+    return bool(near.differs.any())
 
 
 def pairs_of(count: int, against: str) -> list[tuple[int, int]]:
@@ -365,14 +413,18 @@ def compare_sweeps(views, *, tolerance: float | None = None, confidence: float |
     for i, j in pairs_of(len(views), against):
         pair = pairing(views[i], views[j], labels[i], labels[j])
         pairings.append(pair)
-        windows = [(s, n) for n in lengths for s in shared_starts(curves, n)]
+        both = curves[curves.sweep.isin([labels[i], labels[j]])]
+        windows = [(s, n) for n in lengths for s in shared_starts(both, n)]
         floor = max(resolution(views[i].runs), resolution(views[j].runs))
         rows += window_differences(damages[i], damages[j], pair, windows, confidence, floor)
     differences = pd.DataFrame(rows, columns=DIFFERENCE_COLUMNS)
     differences["x"] = [layout.x_value(s, n) for s, n in
                         zip(differences.start, differences.length, strict=True)]
     edges, edge_moves = edges_frame(curves, lengths)
+    changes = verdict_changes(curves, differences)
+    edge_moves["backed"] = [backed(edges[edges.length == n], changes[changes.length == n])
+                            for n in edge_moves.length]
     first = training_of(views[0])
     rungs = [rung_of(view, label, first) for view, label in zip(views, labels, strict=True)]
     return Comparison(rungs, float(tolerance), float(confidence), against, lengths, layout,
-                      pairings, curves, differences, edges, edge_moves)
+                      pairings, curves, differences, edges, edge_moves, changes)

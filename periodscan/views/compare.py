@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import textwrap
 from dataclasses import asdict
 from typing import Any
 
@@ -20,6 +21,8 @@ from periodscan.analysis.compare import (
 from periodscan.views.tables import MARKS
 from periodscan.views.words import PROXY_CAVEAT, points
 
+#: Long lines (edge summaries, notes) are wrapped to this many characters.
+WIDTH = 100
 LADDER_CAVEAT = ("Agreement along a ladder of proxies is evidence, not proof, that the "
                  "production model behaves alike. " + PROXY_CAVEAT)
 
@@ -89,29 +92,50 @@ def edge_value(value: Any) -> str:
         else str(int(value))
 
 
-def edge_block(c: Comparison, length: int) -> list[str]:
-    """Where each sweep puts the critical edge for one length, and whether it moves."""
+def edge_rows(c: Comparison, length: int) -> list[str]:
+    """One line per sweep: where its critical edge lies on the shared starts."""
+    width = max(len(r.label) for r in c.rungs)
+    return [f"  {row.sweep:<{width}}  latest critical start {edge_value(row.critical_until):>4}"
+            f"   every later start safe from {edge_value(row.safe_from):>4}"
+            + ("" if row.located else "   (undetermined starts at the edge)")
+            for row in c.edges[c.edges.length == length].itertuples()]
+
+
+def edge_summary(c: Comparison, length: int) -> str:
+    """Does the edge move, and does a difference of damage back the move?"""
     moves = c.edge_moves.set_index("length").loc[length]
     edges = c.edges[c.edges.length == length]
-    starts = ", ".join(map(str, moves.starts))
-    lines = [f"edge of the critical window ({c.layout.line_label(length)}, on the starts every "
-             f"sweep measured: {starts}):"]
-    width = max(len(r.label) for r in c.rungs)
-    for row in edges.itertuples():
-        lines.append(f"  {row.sweep:<{width}}  latest critical start "
-                     f"{edge_value(row.critical_until):>4}   every later start safe from "
-                     f"{edge_value(row.safe_from):>4}")
     until = " -> ".join(edge_value(v) for v in edges.critical_until)
     safe = " -> ".join(edge_value(v) for v in edges.safe_from)
-    if moves.moves:
-        lines.append(f"  the edge MOVES along the sweeps: latest critical start {until}; "
-                     f"safe from {safe}")
-    else:
-        lines.append(f"  the edge stays in place on every sweep (latest critical start "
-                     f"{edge_value(edges.critical_until.iloc[0])}, safe from "
-                     f"{edge_value(edges.safe_from.iloc[0])}), to the spacing of the starts "
-                     "measured")
-    return lines
+    if not moves.moves:
+        first = edges.iloc[0]
+        if first.critical_until is None and first.safe_from is None:
+            return "no sweep places an edge (no critical start, no safe stretch to the end)"
+        where = (f"latest critical start {edge_value(first.critical_until)}, safe from "
+                 f"{edge_value(first.safe_from)}")
+        if edges.located.all():
+            return (f"the edge stays in place on every sweep ({where}), to the spacing of the "
+                    "starts measured")
+        return f"every sweep reads the edge alike ({where}), but undetermined starts blur it"
+    if moves.backed:
+        rows = c.changes[(c.changes.length == length) & c.changes.differs]
+        where = "; ".join(f"start {r.start}: {r.sweep} minus {r.against} "
+                          f"{_interval(r.difference, r.low, r.high).strip()}"
+                          for r in rows.head(3).itertuples())
+        return (f"the edge MOVES along the sweeps (latest critical start {until}; safe from "
+                f"{safe}), and the damage differs where a verdict changes ({where})")
+    return (f"the verdicts place the edge differently (latest critical start {until}; safe "
+            f"from {safe}), but wherever a verdict changes near the edge the difference of "
+            "damage is within its interval of zero: these seeds do not show that it moves")
+
+
+def edge_block(c: Comparison, length: int) -> list[str]:
+    """Where each sweep puts the critical edge for one length, and whether it moves."""
+    starts = ", ".join(map(str, c.edge_moves.set_index("length").loc[length].starts))
+    return [f"edge of the critical window ({c.layout.line_label(length)}, on the starts every "
+            f"sweep measured: {starts}):", *edge_rows(c, length),
+            textwrap.fill(edge_summary(c, length), WIDTH, initial_indent="  ",
+                          subsequent_indent="    ")]
 
 
 def notes(c: Comparison) -> list[str]:
@@ -139,7 +163,7 @@ def format_comparison(c: Comparison, figure: str | None = None) -> str:
              "table)", *rung_lines(c), ""]
     for length in c.lengths:
         lines += window_block(c, length) + [""] + edge_block(c, length) + [""]
-    lines += notes(c)
+    lines += [textwrap.fill(note, WIDTH, subsequent_indent="    ") for note in notes(c)]
     if figure:
         lines.append(f"figure: {figure}")
     return "\n".join(lines)
@@ -169,6 +193,7 @@ def comparison_record(c: Comparison, figure: str | None = None) -> dict[str, Any
         "pairings": [_plain(asdict(p)) for p in c.pairings],
         "curves": _records(c.curves), "differences": _records(c.differences),
         "edges": _records(c.edges), "edge_moves": _records(c.edge_moves),
+        "verdict_changes": _records(c.changes),
         "caution": LADDER_CAVEAT, "figure": figure,
     }
 
