@@ -6,7 +6,8 @@ trained on different things into one table. So a job records a fingerprint the f
 writes a folder and refuses a later job whose fingerprint differs:
 
 - ``data``: sha256 over the tensors actually loaded (train and held-out, inputs and labels,
-  with their shapes and dtypes), whatever loader made them;
+  with their shapes and dtypes), whatever loader made them; for streamed data, over the labels
+  and the bytes of the files behind the examples (see :meth:`periodscan.data.StreamData.digest`);
 - ``code``: sha256 of the source file of every ``_target_`` outside periodscan and torch (the
   user's data, model, deficit, monitor... modules);
 - ``versions``: periodscan's and torch's. Both must match exactly: a new release may change
@@ -39,7 +40,13 @@ def tensor_digest(*tensors) -> str:
 
 
 def data_digest(data) -> str:
-    """Fingerprint of a :class:`periodscan.data.TensorData` as loaded."""
+    """Fingerprint of the data as loaded: the tensors of a :class:`periodscan.data.TensorData`;
+    for streamed data (:class:`periodscan.data.StreamData`) its own ``digest()``: the labels
+    and the bytes of the files behind the examples, re-reading only files whose size, times or
+    inode changed (a Dataset that names no files has every input hashed instead).
+    """
+    if hasattr(data, "digest"):
+        return data.digest()
     return tensor_digest(data.x_train, data.y_train, data.x_test, data.y_test)
 
 

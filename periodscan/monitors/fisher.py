@@ -72,16 +72,17 @@ class FisherMonitor(Monitor):
         self.method = method
         self.samples = _positive_int("monitor.samples", samples)
         self.chunk_size = _positive_int("monitor.chunk_size", chunk_size)
-        self._probes: dict[tuple[int, int], torch.Tensor] = {}
+        self._probes: dict[tuple[int, int], tuple[torch.Tensor, torch.Tensor]] = {}
 
     def __call__(self, model: torch.nn.Module, data: TensorData, seed: int,
                  epoch: int) -> dict[str, float]:
         key = (seed, len(data.y_train))
-        if key not in self._probes:
-            self._probes[key] = probe_indices(seed, len(data.y_train), self.probe_size)
-        idx = self._probes[key]
+        if key not in self._probes:  # read once: streamed data reads files example by example
+            idx = probe_indices(seed, len(data.y_train), self.probe_size)
+            self._probes[key] = data.train_examples(idx)
+        x, y = self._probes[key]
         gen = generator(seed, epoch, "fisher") if self.estimator == "sampled" else None
-        layers = fisher_trace(model, data.x_train[idx], data.y_train[idx],
+        layers = fisher_trace(model, x, y,
                               estimator=self.estimator, samples=self.samples, gen=gen,
                               method=self.method, chunk_size=self.chunk_size)
         readings = {TOTAL: sum(layers.values())}
