@@ -12,8 +12,10 @@ from typing import Any
 
 from periodscan.analysis.onset_plan import EpochAnswer
 from periodscan.analysis.planner import PlanAnswer
+from periodscan.analysis.variant_plan import VariantPlan
 from periodscan.views.onset import epoch_plan_json, format_epoch_plan
 from periodscan.views.plan import format_plan, plan_json
+from periodscan.views.variants import format_variant_plan, variant_plan_json
 
 
 @singledispatch
@@ -32,3 +34,5 @@ answer_text.register(PlanAnswer, format_plan)
 answer_json.register(PlanAnswer, plan_json)
 answer_text.register(EpochAnswer, format_epoch_plan)
 answer_json.register(EpochAnswer, epoch_plan_json)
+answer_text.register(VariantPlan, format_variant_plan)
+answer_json.register(VariantPlan, variant_plan_json)

@@ -13,7 +13,8 @@ from periodscan.views.words import human_duration
 def _run_label(run) -> str:
     if run.is_baseline:
         return f"baseline@{run.end}"
-    return f"[{run.start},{run.start + run.length})@{run.end}"
+    label = f"[{run.start},{run.start + run.length})@{run.end}"
+    return f"{label} {run.variant}" if run.variant else label
 
 
 def format_tree(tree: RunTree, seeds: list[int]) -> str:
@@ -24,19 +25,36 @@ def format_tree(tree: RunTree, seeds: list[int]) -> str:
 
     def walk(sid: str, depth: int) -> None:
         seg = tree.segments[sid]
-        kind = "DEFICIT" if seg.deficit_on else "clean  "
+        kind = f"DEFICIT {seg.variant}".strip() if seg.deficit_on else "clean  "
         ends = ", ".join(_run_label(r) for r in seg.finishes)
         store = "  [checkpoint]" if seg.children else ""
         tail = f"  -> {ends}" if ends else ""
         lines.append(f"{'  ' * depth}{kind} epochs {seg.begin:>3}-{seg.end:<3}{store}{tail}")
         for child in sorted(seg.children, key=lambda c: (tree.segments[c].begin,
-                                                          not tree.segments[c].deficit_on)):
+                                                          not tree.segments[c].deficit_on,
+                                                          tree.segments[c].variant)):
             walk(child, depth + 1)
 
     for root in tree.roots():
         if root.seed == first:
             walk(root.segment_id, 1)
     return "\n".join(lines)
+
+
+def trunk_lines(tree: RunTree, seeds: list[int]) -> list[str]:
+    """For a sweep of deficit variants: the clean trunk each seed trains, which every variant
+    forks from (nothing for a sweep of one deficit). It is trained once when its epochs add up
+    to the longest baseline of the seed."""
+    variants = list(dict.fromkeys(r.variant for r in tree.runs.values() if r.variant))
+    if not variants:
+        return []
+    trunk = sum(s.epochs for s in tree.segments.values()
+                if s.seed == seeds[0] and not s.deficit_on and not s.variant)
+    longest = max((r.end for r in tree.runs.values() if r.is_baseline and r.seed == seeds[0]),
+                  default=0)
+    times = "once" if trunk == longest else f"{trunk / max(longest, 1):.2f} times"
+    return [f"clean trunk: {longest} epochs per seed, trained {times} per seed; all "
+            f"{len(variants)} deficit variants fork from it ({', '.join(variants)})"]
 
 
 def format_preview(preview) -> str:
@@ -51,6 +69,7 @@ def format_preview(preview) -> str:
     lines.append(f"epochs to train: {tree.epochs_shared} with sharing, "
                  f"{tree.epochs_unshared} trained one by one from scratch "
                  f"(saving x{tree.epochs_unshared / max(tree.epochs_shared, 1):.2f})")
+    lines += trunk_lines(tree, seeds)
     if p.epochs_left < tree.epochs_shared or p.runs_finished:
         lines.append(f"already in the results folder: {p.runs_finished} of {len(tree.runs)} runs "
                      f"finished; {p.epochs_left} of {tree.epochs_shared} epochs left to train")

@@ -168,6 +168,11 @@ def sensitivity_curve(table: pd.DataFrame, path: str | Path, *, title: str = "",
     :func:`periodscan.analysis.readings.fisher_by_epoch`) a bottom panel shows the Fisher trace
     on the same epoch axis.
     """
+    if "variant" in table:  # a sweep of deficit variants: their curves overlaid
+        from periodscan.views.variant_figures import variant_curves
+
+        return variant_curves(table, path, title=title, layout=layout, tolerance=tolerance,
+                              epochs=epochs)
     groups = curve_groups(table, layout)
     has_fisher = fisher is not None and len(fisher) > 0
     fig, axes = _panels(len(groups), has_fisher)

@@ -19,7 +19,8 @@ from periodscan.analysis.planner import PlanAnswer
 from periodscan.designs.layout import Layout
 from periodscan.views.html_results import answer_html, method_html, runs_html, table_html
 from periodscan.views.markup import escape
-from periodscan.views.words import PROXY_CAVEAT, dataset_name, short_name
+from periodscan.views.variant_html import variant_answer_section, variant_tables_html
+from periodscan.views.words import PROXY_CAVEAT, dataset_name, deficit_name, short_name
 
 STYLE = """
 body{font-family:"DejaVu Sans",Helvetica,Arial,sans-serif;color:#22262a;background:#f4f2ec;
@@ -106,7 +107,7 @@ def config_rows(config: dict, design_summary: str) -> list[tuple[str, str]]:
 def header_html(page: PageInput) -> str:
     """Title, the question the sweep asks, the proxy caveat, and a warning if partial."""
     view, config = page.view, page.view.config
-    deficit = short_name((config.get("deficit") or {}).get("_target_"))
+    deficit = deficit_name(config)
     data = dataset_name(config.get("data") or {})
     parts = [f"<h1>periodscan report: {escape(view.name)}</h1>",
              f"<p class='sub'>{escape(page.title)} &middot; written "
@@ -129,6 +130,12 @@ def _image(key: str, alt: str, page: PageInput) -> str:
     return f"<img alt='{alt}' src='data:image/png;base64,{page.images[key]}'>"
 
 
+def _variant_curve_note(page: PageInput) -> str:
+    return (f"<p class='fig-note'>One line per {escape(page.layout.variant_axis)}, mean damage "
+            "with its interval band; the dashed line is the tolerance. Marker shape is the "
+            "verdict: triangle up critical, triangle down safe, dot undetermined.</p>")
+
+
 def figures_html(page: PageInput) -> str:
     """The embedded figures with a line each on how to read them."""
     parts = []
@@ -137,10 +144,16 @@ def figures_html(page: PageInput) -> str:
                   "the same epoch axis." if page.has_fisher else
                   "This sweep recorded no Fisher information trace (monitor=fisher adds one).")
         parts.append("<h2>Sensitivity</h2>" + _image("sensitivity", "sensitivity curve", page)
-                     + "<p class='fig-note'>Mean damage per window with its interval band; the "
-                     "dashed line is the tolerance. Dot colour is the verdict; thin grey bars "
-                     "are the Holm-adjusted bounds the verdicts rest on; a hollow dot marks a "
-                     f"window with little clean training after it. {fisher}</p>")
+                     + (_variant_curve_note(page) if page.layout.variant_axis else
+                        "<p class='fig-note'>Mean damage per window with its interval band; the "
+                        "dashed line is the tolerance. Dot colour is the verdict; thin grey bars "
+                        "are the Holm-adjusted bounds the verdicts rest on; a hollow dot marks a "
+                        f"window with little clean training after it. {fisher}</p>"))
+    if "severity_map" in page.images:
+        parts.append("<h3>Severity &times; start</h3>" + _image("severity_map", "severity map",
+                                                                page)
+                     + "<p class='fig-note'>Mean damage of every severity level at every start; "
+                     "the letter is the level's verdict at that start.</p>")
     if "heatmap" in page.images:
         parts.append("<h3>Start &times; length</h3>" + _image("heatmap", "damage heatmap", page))
     if "curves" in page.images:
@@ -176,11 +189,14 @@ def reproduce_html(view) -> str:
 def render_page(page: PageInput) -> str:
     """The whole page as one string."""
     table, layout = page.table, page.layout
-    parts = [header_html(page), answer_html(table, page.plans, layout, page.finished),
-             figures_html(page)]
+    variants = "variant" in table  # a sweep of deficit variants (views/variant_html.py)
+    answer = (variant_answer_section(table, page.plans, page.finished) if variants
+              else answer_html(table, page.plans, layout, page.finished))
+    parts = [header_html(page), answer, figures_html(page)]
     if len(table):
+        tables = variant_tables_html if variants else table_html
         parts.append("<h2>Sensitivity table</h2>"
-                     + table_html(table, layout, page.view.schedule_epochs)
+                     + tables(table, layout, page.view.schedule_epochs)
                      + "<p class='fig-note'>Also written as sensitivity.csv and "
                      "sensitivity.parquet beside this page.</p>")
     parts += ["<h2>Runs</h2>" + runs_html(page.status, table), config_html(page),

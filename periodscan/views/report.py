@@ -22,6 +22,7 @@ from periodscan.engine.checkpoint import write_atomic
 from periodscan.errors import SweepError
 from periodscan.views import figures
 from periodscan.views.html import PageInput, render_page
+from periodscan.views.variant_figures import variant_figures
 from periodscan.views.words import sweep_title
 
 TABLE_CSV = "sensitivity.csv"
@@ -64,6 +65,9 @@ def draw_figures(view, table: pd.DataFrame, layout: Layout, *, title: str, toler
                  windows: list[tuple[int, int]] | None, fisher: pd.DataFrame) -> dict[str, Path]:
     """Sensitivity curve, heatmap (2-D grids) and learning curves into the sweep folder."""
     folder = view.folder
+    if "variant" in table:  # a sweep of deficit variants (views/variant_figures.py)
+        return variant_figures(view, table, layout, title=title, tolerance=tolerance,
+                               windows=windows, curve_png=CURVE_PNG)
     drawn = {"sensitivity": figures.sensitivity_curve(
         table, folder / CURVE_PNG, title=title, layout=layout, tolerance=tolerance,
         epochs=view.schedule_epochs, fisher=fisher)}

@@ -89,9 +89,19 @@ def dataset_name(data: dict[str, Any]) -> str:
     return loader.removeprefix("load_") or loader
 
 
+def deficit_name(config: dict[str, Any]) -> str:
+    """'Blur' for the config's deficit, or 'blur, label_noise, crop' for a sweep of several
+    deficits (``design.deficits``: option names, or blocks named by their target)."""
+    listed = (config.get("design") or {}).get("deficits")
+    if listed:
+        return ", ".join(item if isinstance(item, str) else short_name(item.get("_target_"))
+                         for item in listed)
+    return short_name((config.get("deficit") or {}).get("_target_"))
+
+
 def sweep_title(config: dict[str, Any]) -> str:
     """"Blur on mnist1d / CNN1d, sweep 'demo'" from a sweep's resolved config."""
-    deficit = short_name((config.get("deficit") or {}).get("_target_"))
+    deficit = deficit_name(config)
     model = short_name((config.get("model") or {}).get("_target_"))
     title = f"{deficit} on {dataset_name(config.get('data') or {})} / {model}"
     return title + (f", sweep '{config['name']}'" if config.get("name") else "")
