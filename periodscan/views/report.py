@@ -71,7 +71,7 @@ def draw_figures(view, table: pd.DataFrame, layout: Layout, *, title: str, toler
     drawn = {"sensitivity": figures.sensitivity_curve(
         table, folder / CURVE_PNG, title=title, layout=layout, tolerance=tolerance,
         epochs=view.schedule_epochs, fisher=fisher)}
-    if table.length.nunique() >= 2 and table.start.nunique() >= 2:
+    if layout.per_length and table.length.nunique() >= 2 and table.start.nunique() >= 2:
         drawn["heatmap"] = figures.heatmap(table, folder / HEATMAP_PNG, title=title)
     chosen = windows if windows is not None else figures.pick_windows(table, layout=layout)
     if chosen and not view.epochs.empty:
