@@ -29,6 +29,7 @@ from periodscan.designs.variants import variant_identity
 from periodscan.engine.tree import RunSpec, baseline, build_tree, segment_id
 from periodscan.errors import ConfigError
 from periodscan.jobs.prepare import prepare
+from periodscan.jobs.sweep import run_sweep
 from periodscan.ledger import Ledger
 
 SEVERITY = {"param": "sigma", "levels": [1.0, 2.0, 4.0]}
@@ -294,3 +295,21 @@ def test_dry_run_says_the_trunk_is_trained_once(tmp_path, capsys):
     # once, then per level 8 + 6 + 4 branch epochs: 8 + 3 x 18 = 62; from scratch 10 x 8 = 80.
     assert "epochs to train: 124 with sharing, 160 trained one by one" in out
     assert "clean trunk: 8 epochs per seed, trained once per seed" in out
+
+
+def test_removal_answers_for_each_variant(make_config, capsys):
+    removal = {"kind": "removal", "until": [2, 4], "budget": "fixed_total",
+               "recovery_epochs": None, "severity": {"param": "sigma", "levels": [1.0, 4.0]}}
+    cfg = make_config(design=removal, schedule__epochs=6)
+    prep = prepare(cfg)
+    # Per seed: the clean baseline (6) once, and per level its deficit trunk 0-4 with clean
+    # tails 2-6 and 4-6: 4 + 4 + 2 = 10; two levels, two seeds: (6 + 20) x 2 = 52.
+    assert prep.tree.epochs_shared == 52
+    run_sweep(cfg, quiet=True)
+    with load_sweep(prep.folder) as view:
+        answers = view.plan()
+        assert list(answers.labels.values()) == ["sigma 1", "sigma 4"]
+        assert {key: [r.epoch for r in a.rows] for key, a in answers.answers.items()} == \
+            {"sigma=1": [2, 4], "sigma=4": [2, 4]}
+    assert main(["plan", str(prep.folder), "--json"]) == 0
+    assert list(json.loads(capsys.readouterr().out)["answers"]) == ["sigma=1", "sigma=4"]

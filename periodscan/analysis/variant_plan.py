@@ -9,7 +9,9 @@ the lapses at each start (:func:`periodscan.analysis.variants.rank_lapses`).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Any
 
 import pandas as pd
 
@@ -93,3 +95,28 @@ def variant_plan(runs: pd.DataFrame, table: pd.DataFrame, length: int | None,
         labels={k: v for k, v in labels.items() if k in answers}, answers=answers,
         severity=severity_answers(table, used) if is_severity else [],
         ranking=rank_lapses(runs, table, used, confidence) if len(answers) > 1 else [])
+
+
+@dataclass
+class VariantAnswers:
+    """One answer per variant, for a design whose question is asked of each variant alone
+    (a removal design: how long may each deficit last?). ``answers`` maps a variant key to
+    its design's ordinary answer; ``labels`` the key to its label, in the sweep's order."""
+
+    sweep: str
+    axis: str
+    is_severity: bool
+    labels: dict[str, str]
+    answers: dict[str, Any]
+
+
+def each_variant(table: pd.DataFrame, answer: Callable[[pd.DataFrame, str], Any], *, sweep: str,
+                 axis: str, labels: dict[str, str]) -> VariantAnswers:
+    """``answer(rows, sweep_label)`` for every variant with rows in a variant table."""
+    if table.empty:
+        raise SweepError(f"sweep {sweep!r} has no finished window runs yet; nothing to plan from")
+    answers = {key: answer(variant_rows(table, key), f"{sweep}, {label}")
+               for key, label in labels.items() if (table.variant == key).any()}
+    return VariantAnswers(sweep=sweep, axis=axis, is_severity="severity" in table,
+                          labels={k: v for k, v in labels.items() if k in answers},
+                          answers=answers)

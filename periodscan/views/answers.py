@@ -12,10 +12,15 @@ from typing import Any
 
 from periodscan.analysis.onset_plan import EpochAnswer
 from periodscan.analysis.planner import PlanAnswer
-from periodscan.analysis.variant_plan import VariantPlan
+from periodscan.analysis.variant_plan import VariantAnswers, VariantPlan
 from periodscan.views.onset import epoch_plan_json, format_epoch_plan
 from periodscan.views.plan import format_plan, plan_json
-from periodscan.views.variants import format_variant_plan, variant_plan_json
+from periodscan.views.variants import (
+    format_variant_answers,
+    format_variant_plan,
+    variant_answers_json,
+    variant_plan_json,
+)
 
 
 @singledispatch
@@ -36,3 +41,5 @@ answer_text.register(EpochAnswer, format_epoch_plan)
 answer_json.register(EpochAnswer, epoch_plan_json)
 answer_text.register(VariantPlan, format_variant_plan)
 answer_json.register(VariantPlan, variant_plan_json)
+answer_text.register(VariantAnswers, format_variant_answers)
+answer_json.register(VariantAnswers, variant_answers_json)

@@ -190,7 +190,7 @@ def render_page(page: PageInput) -> str:
     """The whole page as one string."""
     table, layout = page.table, page.layout
     variants = "variant" in table  # a sweep of deficit variants (views/variant_html.py)
-    answer = (variant_answer_section(table, page.plans, page.finished) if variants
+    answer = (variant_answer_section(table, page.plans, layout, page.finished) if variants
               else answer_html(table, page.plans, layout, page.finished))
     parts = [header_html(page), answer, figures_html(page)]
     if len(table):

@@ -58,6 +58,13 @@ def variant_colors(table: pd.DataFrame) -> dict[str, str]:
                                                                           strict=True)}
 
 
+def panels(table: pd.DataFrame, layout: Layout) -> list[tuple[str, pd.DataFrame]]:
+    """(title, rows) per panel: one per deficit length, or one in all (a removal design)."""
+    if not layout.per_length:
+        return [(layout.line_label(int(table.length.iloc[0])), table)]
+    return [(layout.line_label(int(n)), rows) for n, rows in table.groupby("length")]
+
+
 def _overlay_panel(ax, table: pd.DataFrame, layout: Layout, colors: dict[str, str],
                    tolerance: float | None) -> None:
     """Every variant's damage curve with its interval band; marker shape = verdict."""
@@ -83,14 +90,14 @@ def variant_curves(table: pd.DataFrame, path: str | Path, *, title: str = "",
                    layout: Layout = WINDOW, tolerance: float | None = None,
                    epochs: int | None = None) -> Path:
     """Damage against the window start, one panel per deficit length, one line per variant."""
-    lengths = sorted(int(n) for n in table.length.unique())
-    fig, axes = plt.subplots(len(lengths), 1, figsize=(8.0, 1.6 + 3.0 * len(lengths)), dpi=120,
+    groups = panels(table, layout)
+    fig, axes = plt.subplots(len(groups), 1, figsize=(8.0, 1.6 + 3.0 * len(groups)), dpi=120,
                              sharex=True, squeeze=False, layout="constrained")
     colors = variant_colors(table)
     level = int(round(100 * table.confidence.iloc[0]))
-    for ax, length in zip(axes[:, 0], lengths, strict=True):
-        _overlay_panel(ax, table[table.length == length], layout, colors, tolerance)
-        ax.set_title(layout.line_label(length), fontsize=9, loc="left", fontweight="bold")
+    for ax, (label, rows) in zip(axes[:, 0], groups, strict=True):
+        _overlay_panel(ax, rows, layout, colors, tolerance)
+        ax.set_title(label, fontsize=9, loc="left", fontweight="bold")
         ax.set_ylabel(f"damage, points\n({level}% interval)", fontsize=8.5)
     handles = [Line2D([], [], color=colors[k], lw=1.8, label=variant_label(table, k, layout))
                for k in colors]
@@ -124,22 +131,24 @@ def _map_cells(ax, damage: np.ndarray, verdicts: np.ndarray, span: float) -> Non
 def severity_map(table: pd.DataFrame, path: str | Path, *, title: str = "",
                  layout: Layout = WINDOW) -> Path:
     """Mean damage of every severity level (rows, mildest at the bottom) at every start
-    (columns), one panel per deficit length; each cell names its verdict's letter."""
+    (columns; the removal epoch for a removal design), one panel per deficit length; each cell
+    names its verdict's letter."""
     keys = list(pd.unique(table.variant))
-    lengths = sorted(int(n) for n in table.length.unique())
-    starts = sorted(int(s) for s in table.start.unique())
+    groups = panels(table, layout)
+    table = table.assign(x=figures.axis_values(table, layout).astype(int))
+    starts = sorted(int(s) for s in table.x.unique())
     finite = table.damage[np.isfinite(table.damage)]
     span = max(float(finite.abs().max()) if len(finite) else 1.0, 1e-6)
     width = min(max(2.5 + 0.6 * len(starts), 6.5), 11.0)
-    fig, axes = plt.subplots(len(lengths), 1, squeeze=False, dpi=120, layout="constrained",
-                             figsize=(width, 1.2 + (0.9 + 0.45 * len(keys)) * len(lengths)))
+    fig, axes = plt.subplots(len(groups), 1, squeeze=False, dpi=120, layout="constrained",
+                             figsize=(width, 1.2 + (0.9 + 0.45 * len(keys)) * len(groups)))
     norm = TwoSlopeNorm(0.0, -span, span)
-    for ax, length in zip(axes[:, 0], lengths, strict=True):
-        rows = table[table.length == length]
+    for ax, (label, rows) in zip(axes[:, 0], groups, strict=True):
+        rows = table.loc[rows.index]
         damage = np.full((len(keys), len(starts)), np.nan)
         verdicts = np.full(damage.shape, "", dtype=object)
         for row in rows.itertuples():
-            r, c = keys.index(row.variant), starts.index(int(row.start))
+            r, c = keys.index(row.variant), starts.index(int(row.x))
             damage[r, c] = row.damage
             verdicts[r, c] = getattr(row, "verdict", "")
         image = ax.imshow(np.ma.masked_invalid(damage), cmap=figures.DAMAGE_CMAP, norm=norm,
@@ -147,7 +156,7 @@ def severity_map(table: pd.DataFrame, path: str | Path, *, title: str = "",
         _map_cells(ax, damage, verdicts, span)
         ax.set_xticks(range(len(starts)), [str(s) for s in starts])
         ax.set_yticks(range(len(keys)), [variant_label(table, k, layout) for k in keys])
-        ax.set_title(layout.line_label(length), fontsize=9, loc="left")
+        ax.set_title(label, fontsize=9, loc="left")
     axes[-1, 0].set_xlabel(layout.axis_title)
     fig.colorbar(image, ax=axes[:, 0], pad=0.02).set_label("mean damage (points)")
     heading = ("damage by severity, mildest at the bottom\n"
@@ -171,7 +180,7 @@ def variant_figures(view, table: pd.DataFrame, layout: Layout, *, title: str,
     drawn = {"sensitivity": variant_curves(table, folder / curve_png, title=title,
                                            layout=layout, tolerance=tolerance,
                                            epochs=view.schedule_epochs)}
-    if variant_noun(table) == "level" and table.start.nunique() >= 2:
+    if variant_noun(table) == "level" and figures.axis_values(table, layout).nunique() >= 2:
         drawn["severity_map"] = severity_map(table, folder / SEVERITY_MAP_PNG, title=title,
                                              layout=layout)
     key = worst_variant(table)

@@ -8,7 +8,7 @@ import pandas as pd
 from periodscan.analysis.variant_plan import VariantPlan, variant_rows
 from periodscan.designs.layout import Layout
 from periodscan.views.html_results import plan_html, table_html
-from periodscan.views.markup import escape, number
+from periodscan.views.markup import definition_list, escape, number
 from periodscan.views.variants import variant_label, variant_noun
 
 
@@ -82,10 +82,30 @@ def variant_tables_html(table: pd.DataFrame, layout: Layout, epochs: int) -> str
                    for key in pd.unique(table.variant))
 
 
-def variant_answer_section(table: pd.DataFrame, plans: list, finished: bool) -> str:
-    """The report's answer for a variant sweep (its plans are :class:`VariantPlan`)."""
+def verdicts_html(table: pd.DataFrame, layout: Layout) -> str:
+    """Without a plan: each variant's critical and safe windows."""
+    parts = []
+    for key in pd.unique(table.variant):
+        rows = variant_rows(table, key)
+        found = [(v, ", ".join(layout.window_label(r.start, r.length)
+                                for r in rows.itertuples() if r.verdict == v)
+                  or "none established") for v in ("critical", "safe")]
+        parts.append(f"<h3>{escape(variant_noun(table))}: "
+                     f"{escape(variant_label(table, key, layout))}</h3>"
+                     + definition_list([(v, f"<span class='{v}'>{escape(text)}</span>")
+                                        for v, text in found]))
+    return "".join(parts)
+
+
+def variant_answer_section(table: pd.DataFrame, plans: list, layout: Layout,
+                           finished: bool) -> str:
+    """The report's answer for a variant sweep: its :class:`VariantPlan` answers, or each
+    variant's verdicts when the design has no such plan."""
     if not (len(table) and finished):
         return "<h2>Answer</h2><p>No window run has finished yet.</p>"
     tol, conf = table.tolerance.iloc[0], table.confidence.iloc[0]
     head = f"<h2>Answer at a tolerance of {tol:g} points, {conf:.0%} confidence</h2>"
-    return head + variant_answer_html([p for p in plans if isinstance(p, VariantPlan)])
+    mine = [p for p in plans if isinstance(p, VariantPlan)]
+    if not mine and "verdict" in table:
+        return head + verdicts_html(table, layout)
+    return head + variant_answer_html(mine)

@@ -16,7 +16,7 @@ from typing import Any
 import pandas as pd
 
 from periodscan.analysis import planner
-from periodscan.analysis.variant_plan import VariantPlan, variant_rows
+from periodscan.analysis.variant_plan import VariantAnswers, VariantPlan, variant_rows
 from periodscan.analysis.variants import StartRanking, label_column
 from periodscan.designs.layout import WINDOW, Layout
 from periodscan.views.plan import plan_notes, plan_record, plan_summary
@@ -160,5 +160,25 @@ def variant_plan_json(plan: VariantPlan, indent: int | None = 2) -> str:
     return json.dumps(variant_plan_record(plan), indent=indent)
 
 
-__all__ = ["format_variant_plan", "format_variant_table", "ranking_lines",
-           "severity_lines", "variant_label", "variant_plan_json", "variant_plan_record"]
+def format_variant_answers(answers: VariantAnswers) -> str:
+    """Each variant's answer in its design's own words, under a heading naming the variant."""
+    from periodscan.views.answers import answer_text  # it registers this function
+
+    noun = "level" if answers.is_severity else "deficit"
+    return "\n\n".join(f"== {noun}: {answers.labels[key]} ==\n{answer_text(answer)}"
+                       for key, answer in answers.answers.items())
+
+
+def variant_answers_json(answers: VariantAnswers, indent: int | None = 2) -> str:
+    """{sweep, axis, labels, answers: {key: the answer's own JSON record}} as a JSON string."""
+    from periodscan.views.answers import answer_json  # it registers this function
+
+    record = {"sweep": answers.sweep, "axis": answers.axis, "is_severity": answers.is_severity,
+              "labels": answers.labels,
+              "answers": {key: json.loads(answer_json(a)) for key, a in answers.answers.items()}}
+    return json.dumps(record, indent=indent)
+
+
+__all__ = ["format_variant_answers", "format_variant_plan", "format_variant_table",
+           "ranking_lines", "severity_lines", "variant_answers_json", "variant_label",
+           "variant_plan_json", "variant_plan_record"]
