@@ -54,6 +54,7 @@ def run(args: argparse.Namespace) -> int:
     from periodscan.analysis.compare import compare_sweeps
     from periodscan.api import load_sweep
     from periodscan.views.compare import comparison_json, format_comparison
+    from periodscan.views.words import sweep_title
 
     with ExitStack() as stack:
         views = [stack.enter_context(load_sweep(sweep, args.results_dir))
@@ -61,6 +62,7 @@ def run(args: argparse.Namespace) -> int:
         comparison = compare_sweeps(views, tolerance=args.tolerance,
                                     confidence=args.confidence, length=args.length,
                                     against=args.against)
+        titles = {sweep_title({**view.config, "name": None}) for view in views}
     figure = None
     if not args.no_figure:
         from periodscan.views.compare_figure import comparison_figure
@@ -68,7 +70,8 @@ def run(args: argparse.Namespace) -> int:
         path = Path(args.figure) if args.figure else default_figure(
             args.results_dir, [r.label for r in comparison.rungs])
         path.parent.mkdir(parents=True, exist_ok=True)
-        figure = str(comparison_figure(comparison, path))
+        title = titles.pop() if len(titles) == 1 else ""  # one title only when all agree
+        figure = str(comparison_figure(comparison, path, title=title))
     print(comparison_json(comparison, figure) if args.json
           else format_comparison(comparison, figure))
     return 0
