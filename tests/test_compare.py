@@ -5,6 +5,8 @@ runs as the first rung's, to exercise the paired case)."""
 from __future__ import annotations
 
 import json
+import shutil
+import sqlite3
 
 import numpy as np
 import pandas as pd
@@ -13,6 +15,7 @@ from scipy import stats
 from statsmodels.stats.weightstats import CompareMeans, DescrStatsW
 
 from periodscan.analysis.compare import (
+    BASELINES_DIFFER,
     PAIRED,
     WELCH,
     backed,
@@ -191,6 +194,20 @@ def test_same_baselines_are_paired_by_seed(ladder):
         assert row.method == "paired t" and row.p_value == pytest.approx(ref.pvalue, rel=1e-9)
     else:  # every seed moved by the same amount: the floor of one test example stands in
         assert row.method == "paired t, sd floor"
+    for view in views:
+        view.close()
+
+
+def test_baselines_whose_results_differ_are_not_paired(ladder, tmp_path):
+    edited = tmp_path / "w8edited"
+    shutil.copytree(ladder / "w8mild", edited)
+    with sqlite3.connect(edited / "ledger.sqlite") as conn:  # one baseline scored differently
+        conn.execute("UPDATE runs SET test_acc = test_acc - 0.01 "
+                     "WHERE run_id = 'seed0-baseline-to8'")
+    views = [load_sweep(ladder / "w8"), load_sweep(edited)]
+    c = compare_sweeps(views)
+    assert (c.pairings[0].method, c.pairings[0].reason) == (WELCH, BASELINES_DIFFER)
+    assert set(c.differences.method) <= {"welch", "welch, sd floor"}
     for view in views:
         view.close()
 

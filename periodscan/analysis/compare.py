@@ -156,18 +156,24 @@ def _same_correctness(view_a, view_b, run_id: str) -> bool:
     return view_a.ledger.correctness(run_id) == view_b.ledger.correctness(run_id)
 
 
+def baseline_training(view) -> dict[str, Any]:
+    """The training settings a baseline depends on: all of them but the deficit's."""
+    return {k: v for k, v in training_of(view).items() if not k.startswith("deficit.")}
+
+
+def same_data(view_a, view_b) -> bool:
+    """False only when both ledgers recorded a digest of the data loaded and they differ."""
+    digests = [(v.meta.get("fingerprint") or {}).get("data") for v in (view_a, view_b)]
+    return None in digests or digests[0] == digests[1]
+
+
 def pairing(view_a, view_b, a: str, b: str) -> Pairing:
     """Pair by seed only when the baselines of the shared seeds are literally the same runs."""
-    without_deficit = {k: v for k, v in training_of(view_a).items()
-                       if not k.startswith("deficit.")}
-    other = {k: v for k, v in training_of(view_b).items() if not k.startswith("deficit.")}
+    mine, other = baseline_training(view_a), baseline_training(view_b)
     identity = view_a.meta.get("identity")
     same_identity = identity is not None and identity == view_b.meta.get("identity")
-    if not same_identity and (without_deficit != other
-                              or view_a.meta.get("fingerprint", {}).get("data")
-                              != view_b.meta.get("fingerprint", {}).get("data")):
-        return Pairing(a, b, WELCH, TRAINING_DIFFERS,
-                       keys=sorted(config_changes(without_deficit, other)))
+    if not same_identity and (mine != other or not same_data(view_a, view_b)):
+        return Pairing(a, b, WELCH, TRAINING_DIFFERS, keys=sorted(config_changes(mine, other)))
     both = _baselines(view_a).merge(_baselines(view_b), on=["seed", "run_id"],
                                     suffixes=("_a", "_b"))
     if both.empty:
