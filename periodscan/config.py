@@ -29,8 +29,17 @@ from periodscan.params import ROOT, check_settings, check_value
 
 #: Bump when a change to the engine changes the numbers a config produces.
 ENGINE_VERSION = 1
-GROUPS = ("data", "model", "deficit", "design", "schedule", "executor", "monitor", "experiment")
-TRAINING_KEYS = ("data", "model", "deficit", "schedule")
+GROUPS = ("data", "model", "deficit", "design", "schedule", "step", "executor", "monitor",
+          "experiment")
+TRAINING_KEYS = ("data", "model", "deficit", "schedule", "step", "device")
+#: Training keys added after identities were first recorded, at the value that trains exactly
+#: as before they existed (configs/step/cross_entropy.yaml, the CPU). At that value they stay
+#: out of the identity hash, so a folder made before them keeps its identity.
+LATER_TRAINING_DEFAULTS = {
+    "step": {"_target_": "periodscan.steps.CrossEntropy", "label_smoothing": 0.0,
+             "max_grad_norm": None},
+    "device": "cpu",
+}
 
 
 def config_dir() -> str:
@@ -140,10 +149,17 @@ def to_plain(cfg: DictConfig) -> dict[str, Any]:
 
 def training_identity(plain: dict[str, Any]) -> str:
     """Hash of everything that changes the numbers; runs are only reused under the same hash."""
-    keyed = {k: plain[k] for k in TRAINING_KEYS}
+    keyed = {k: plain[k] for k in TRAINING_KEYS if not _as_before(plain, k)}
     keyed["threads"] = plain["executor"].get("threads_per_worker", 1)
     keyed["engine"] = ENGINE_VERSION
     return hashlib.sha256(json.dumps(keyed, sort_keys=True, default=str).encode()).hexdigest()[:16]
+
+
+def _as_before(plain: dict[str, Any], key: str) -> bool:
+    """True for a later training key that is absent or at its value that trains as before."""
+    if key not in LATER_TRAINING_DEFAULTS:
+        return False
+    return plain.get(key, LATER_TRAINING_DEFAULTS[key]) == LATER_TRAINING_DEFAULTS[key]
 
 
 # --- values ---------------------------------------------------------------------------------
@@ -204,7 +220,8 @@ def check_known_keys(plain: dict[str, Any]) -> None:
             full = f"{prefix}{key}"
             if key not in known:
                 raise ConfigError(_unknown_message(full, str(key), sorted(known)))
-            if isinstance(value, dict) and isinstance(known[key], dict):
+            if isinstance(value, dict) and isinstance(known[key], dict) and (
+                    "_target_" not in value):  # a _target_'s keywords are checked when built
                 walk(value, known[key], f"{full}.")
 
     walk(plain, known_keys(), "")

@@ -188,6 +188,12 @@ def _lr_schedules() -> Iterable[str]:
     return LR_SCHEDULES
 
 
+def _devices() -> Iterable[str]:
+    from periodscan.engine.device import DEVICES
+
+    return DEVICES
+
+
 def _executors() -> Iterable[str]:
     from periodscan.engine.executors import EXECUTORS
 
@@ -206,19 +212,20 @@ ROOT = {
                             words="a non-empty list of distinct ints >= 0")],
     "confidence": [CONFIDENCE],
     "tolerance": [TOLERANCE, None],
+    "device": [Options(source=_devices), None],  # None (a config from before it existed): cpu
 }
 
 SCHEDULE = {
     "epochs": [COUNT],
     "batch_size": [COUNT],
     "optimizer": {
-        "name": [Options(source=_optimizers)],
+        "name": [Options(source=_optimizers), None],  # None with _target_ (check_recipe)
         "lr": [Interval(float, 0.0, None, closed="neither")],
         "momentum": [Interval(float, 0.0, 1.0), None],
         "weight_decay": [Interval(float, 0.0, None), None],
     },
     "lr_schedule": {
-        "kind": [Options(source=_lr_schedules)],
+        "kind": [Options(source=_lr_schedules), None],  # None with lr_scheduler (check_recipe)
         "warmup_epochs": [EPOCH, None],
     },
     "augment": {"max_shift": [EPOCH, None]},
@@ -247,6 +254,9 @@ def check_settings(plain: Mapping[str, Any]) -> None:
     kind = (schedule.get("lr_schedule") or {}).get("kind")
     check(schedule.get("lr_schedule") or {}, LR_SCHEDULE_FIELDS.get(kind, {}),
           "schedule.lr_schedule.")
+    from periodscan.engine.schedule import check_recipe
+
+    check_recipe(schedule)
     check(plain.get("executor") or {}, EXECUTOR, "executor.")
 
 

@@ -1,8 +1,11 @@
 """Checkpoints as bytes: what a branch needs to continue exactly where its parent stopped.
 
 A checkpoint holds the model state (BatchNorm running statistics included), the optimizer state
-(momentum / Adam moments and step counts) and the epoch. The learning rate is a pure function of
-the epoch and every RNG is reseeded per epoch, so nothing else is needed. Bytes travel to worker
+(momentum / Adam moments and step counts), a torch learning-rate scheduler's state when the
+schedule has one, and the epoch. Built-in learning rates are a pure function of the epoch and
+every RNG is reseeded per epoch, so nothing else is needed. Tensors are saved on the CPU
+whatever device trained them, and loaded onto the CPU, so a checkpoint made on a GPU resumes
+anywhere (the optimizer moves its state to its parameters' device). Bytes travel to worker
 processes or cluster nodes directly; on disk they are written atomically and verified by hash,
 and always loaded with ``weights_only=True`` so a checkpoint can never run code.
 """
@@ -18,18 +21,34 @@ from typing import Any
 
 import torch
 
+from periodscan.engine.device import on_cpu
+
 #: Random temporary names tried before giving up (48 random bits each: a clash is a bug).
 TEMPORARY_ATTEMPTS = 100
 
 
-def to_bytes(model: torch.nn.Module, optimizer: torch.optim.Optimizer, epoch: int) -> bytes:
-    """Serialise model and optimizer state after ``epoch`` epochs of training."""
+def to_bytes(model: torch.nn.Module, optimizer: torch.optim.Optimizer, epoch: int,
+             lr_scheduler: torch.optim.lr_scheduler.LRScheduler | None = None) -> bytes:
+    """Serialise model, optimizer (and scheduler) state after ``epoch`` epochs of training."""
+    state = {"epoch": int(epoch), "model": on_cpu(model.state_dict()),
+             "optimizer": on_cpu(optimizer.state_dict())}
+    if lr_scheduler is not None:
+        state["lr_scheduler"] = on_cpu(lr_scheduler.state_dict())
     buffer = io.BytesIO()
-    torch.save(
-        {"epoch": int(epoch), "model": model.state_dict(), "optimizer": optimizer.state_dict()},
-        buffer,
-    )
+    torch.save(state, buffer)
     return buffer.getvalue()
+
+
+def restore(state: dict[str, Any], model: torch.nn.Module, optimizer: torch.optim.Optimizer,
+            lr_scheduler: torch.optim.lr_scheduler.LRScheduler | None = None) -> None:
+    """Load a :func:`from_bytes` state into freshly built objects (of the same config)."""
+    model.load_state_dict(state["model"])
+    optimizer.load_state_dict(state["optimizer"])
+    if (lr_scheduler is not None) != ("lr_scheduler" in state):
+        raise RuntimeError("checkpoint and config disagree on whether a torch learning-rate "
+                           "scheduler is used")
+    if lr_scheduler is not None:
+        lr_scheduler.load_state_dict(state["lr_scheduler"])
 
 
 def from_bytes(blob: bytes) -> dict[str, Any]:
