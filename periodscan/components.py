@@ -17,6 +17,7 @@ from hydra.errors import InstantiationException
 from hydra.utils import instantiate
 
 from periodscan.data.base import TensorData
+from periodscan.data.stream import StreamData, check_examples
 from periodscan.deficits.base import Deficit
 from periodscan.engine.segment import build_model, load_data
 from periodscan.errors import ConfigError, PeriodscanError
@@ -102,12 +103,14 @@ def _build(group: str, build: Callable[[], Any], keys: Collection[str] = ()) -> 
         raise _unwrap(group, err, keys) from None
 
 
-def check_components(plain: dict[str, Any]) -> TensorData:
+def check_components(plain: dict[str, Any]) -> TensorData | StreamData:
     """Instantiate every component, pass one batch through deficit and model; return the data."""
     data = _build("data", lambda: load_data(plain["data"]), keys=plain["data"])
-    if not isinstance(data, TensorData):
-        raise ConfigError(f"data: the loader must return periodscan.data.TensorData; got "
-                          f"{type(data).__name__}")
+    if not isinstance(data, (TensorData, StreamData)):
+        raise ConfigError(f"data: the loader must return periodscan.data.TensorData or "
+                          f"StreamData; got {type(data).__name__}")
+    if isinstance(data, StreamData):
+        check_examples(data)  # shapes, integer labels, reads that depend only on the index
     deficit = _build("deficit", lambda: instantiate(plain["deficit"]))
     if not isinstance(deficit, Deficit):
         raise ConfigError(f"deficit: the target must build a periodscan.deficits.Deficit; got "
@@ -137,21 +140,22 @@ def check_components(plain: dict[str, Any]) -> TensorData:
     return data
 
 
-def _trial_batch(deficit: Deficit, data: TensorData) -> tuple[torch.Tensor, torch.Tensor]:
+def _trial_batch(deficit: Deficit,
+                 data: TensorData | StreamData) -> tuple[torch.Tensor, torch.Tensor]:
     """Let the deficit prepare, select and change two examples, as training will."""
     gen = torch.Generator().manual_seed(0)
     try:
         deficit.prepare(data, gen)
         order = deficit.select(torch.arange(len(data.y_train)), data, gen)
         idx = order[:2] if len(order) >= 2 else torch.arange(2)
-        x, y = deficit.apply(data.x_train[idx], data.y_train[idx], idx, gen)
+        x, y = deficit.apply(*data.train_examples(idx), idx, gen)
     except PeriodscanError:
         raise
     except Exception as err:  # noqa: BLE001 - a deficit that cannot handle this data
         raise ConfigError(f"deficit: fails on a batch of this data (examples of shape "
-                          f"{tuple(data.x_train.shape[1:])}): {type(err).__name__}: "
+                          f"{tuple(data.input_shape)}): {type(err).__name__}: "
                           f"{_last_line(err)}") from None
-    if tuple(x.shape[1:]) != tuple(data.x_train.shape[1:]) or len(y) != len(x):
+    if tuple(x.shape[1:]) != tuple(data.input_shape) or len(y) != len(x):
         raise ConfigError(f"deficit: must keep the shape of examples {tuple(data.input_shape)} and "
                           f"one label per example; got inputs {tuple(x.shape)}, labels "
                           f"{tuple(y.shape)}")

@@ -19,21 +19,25 @@ import torch
 from hydra.utils import instantiate
 
 from periodscan.data.base import TensorData
+from periodscan.data.stream import StreamData
 from periodscan.deficits.base import Deficit
 from periodscan.engine import checkpoint
 from periodscan.engine.device import use_device
 from periodscan.engine.records import EpochRecord, SegmentJob, SegmentResult
 from periodscan.engine.schedule import build_lr_scheduler, build_optimizer
-from periodscan.engine.training import evaluate, prepare_deficit, train_epoch
+from periodscan.engine.training import EVAL_BATCH, evaluate_batches, prepare_deficit, train_epoch
 from periodscan.monitors import build_monitor
 from periodscan.seeding import ONCE, derive_seed
 from periodscan.steps import Step, build_step
 
-_DATA_CACHE: dict[str, TensorData] = {}
+_DATA_CACHE: dict[str, TensorData | StreamData] = {}
 
 
-def load_data(data_config: dict[str, Any]) -> TensorData:
-    """Build the dataset once per process; workers reuse it across segments."""
+def load_data(data_config: dict[str, Any]) -> TensorData | StreamData:
+    """Build the dataset once per process; workers reuse it across segments.
+
+    Streamed data keeps its loader worker processes for as long as it stays here.
+    """
     key = json.dumps(data_config, sort_keys=True, default=str)
     if key not in _DATA_CACHE:
         _DATA_CACHE.clear()
@@ -148,7 +152,7 @@ def train_epochs(model, optimizer, data: TensorData, schedule: dict[str, Any], s
         lr, train_loss, train_acc = train_epoch(
             model, optimizer, data, schedule, seed, epoch, deficit, step, lr_scheduler
         )
-        held_out = evaluate(model, data.x_test, data.y_test)
+        held_out = evaluate_batches(model, data.test_batches(EVAL_BATCH))
         records.append(EpochRecord(
             epoch=epoch, lr=lr, train_loss=train_loss, train_acc=train_acc,
             test_loss=held_out.loss, test_acc=held_out.acc, deficit_on=deficit is not None,

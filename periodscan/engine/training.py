@@ -11,7 +11,7 @@ to the model's device for the step (periodscan.steps); evaluation runs on that d
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -82,12 +82,10 @@ def train_epoch(
     total_loss = torch.zeros((), dtype=torch.float64, device=device)
     total_correct = torch.zeros((), dtype=torch.int64, device=device)
     seen = 0
-    for begin in range(0, len(order), batch_size):
-        idx = order[begin : begin + batch_size]
-        if len(idx) == 1 and begin > 0:
-            break  # a trailing batch of one example: BatchNorm cannot normalise it
-        x = data.x_train[idx]  # (B, C, *spatial)
-        y = data.y_train[idx]  # (B,)
+    batches = index_batches(order, batch_size)
+    # x (B, C, *spatial) and y (B,) are read by index: sliced from memory, or read from a
+    # Dataset by loader workers (periodscan.data.stream), always in the order drawn above.
+    for idx, (x, y) in zip(batches, data.train_batches(batches), strict=True):
         if use_augment:
             x = augment_batch(
                 x, augment_gen, int(augment.get("max_shift", 0)), bool(augment.get("hflip", False))
@@ -104,6 +102,20 @@ def train_epoch(
     return (lr, *epoch_means(total_loss, total_correct, seen))
 
 
+def index_batches(order: torch.Tensor, batch_size: int) -> list[torch.Tensor]:
+    """The epoch's batches of training indices: consecutive slices of ``order``.
+
+    The batches stop before a later batch of one example: BatchNorm cannot normalise it.
+    """
+    batches = []
+    for begin in range(0, len(order), batch_size):
+        idx = order[begin : begin + batch_size]
+        if len(idx) == 1 and begin > 0:
+            break
+        batches.append(idx)
+    return batches
+
+
 def epoch_means(total_loss: torch.Tensor, total_correct: torch.Tensor,
                 seen: int) -> tuple[float, float]:
     """(mean train loss, train accuracy) from running sums; (NaN, NaN) when training diverged."""
@@ -113,18 +125,26 @@ def epoch_means(total_loss: torch.Tensor, total_correct: torch.Tensor,
     return mean_loss, int(total_correct) / seen
 
 
-@torch.no_grad()
 def evaluate(model: torch.nn.Module, x: torch.Tensor, y: torch.Tensor) -> Evaluation:
-    """Loss, accuracy and per-example correctness on clean held-out data, in eval mode.
+    """:func:`evaluate_batches` on held-out tensors, EVAL_BATCH examples at a time."""
+    return evaluate_batches(model, ((x[b : b + EVAL_BATCH], y[b : b + EVAL_BATCH])
+                                    for b in range(0, len(y), EVAL_BATCH)))
 
+
+@torch.no_grad()
+def evaluate_batches(model: torch.nn.Module,
+                     batches: Iterable[tuple[torch.Tensor, torch.Tensor]]) -> Evaluation:
+    """Loss, accuracy and per-example correctness on clean held-out batches, in eval mode.
+
+    ``batches`` yields (inputs, labels) over the held-out split in order (``data.test_batches``).
     Non-finite logits (a diverged model) count as wrong answers, never as a crash.
     """
     model.eval()
     device = model_device(model)
     losses, correct = [], []
-    for begin in range(0, len(y), EVAL_BATCH):
-        logits = model(x[begin : begin + EVAL_BATCH].to(device))
-        target = y[begin : begin + EVAL_BATCH].to(device)
+    for inputs, labels in batches:
+        logits = model(inputs.to(device))
+        target = labels.to(device)
         finite = torch.isfinite(logits).all(dim=1)
         losses.append(F.cross_entropy(logits, target, reduction="none").double())
         correct.append((logits.argmax(1) == target) & finite)
