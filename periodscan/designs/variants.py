@@ -79,8 +79,7 @@ class DeficitItem:
         return isinstance(value, Mapping) and isinstance(value.get("_target_"), str)
 
     def __str__(self) -> str:
-        return f"an option of configs/deficit ({', '.join(deficit_options())}) or a deficit " \
-               "block with a _target_"
+        return "a deficit option name or a deficit block with a _target_"
 
 
 @dataclass(frozen=True)
@@ -94,10 +93,20 @@ class Level:
         return "a number or a string"
 
 
-SEVERITY_BLOCK = Block(("param", "levels"), "null or {param: <a parameter of the deficit>, "
+SEVERITY_BLOCK = Block(("param", "levels"), "{param: <a parameter of the deficit>, "
                                             "levels: [<mildest>, ..., <most severe>]}")
-DEFICIT_LIST = ListOf(DeficitItem(), words="null or a non-empty list of configs/deficit option "
-                                           "names or deficit blocks with a _target_")
+
+
+@dataclass(frozen=True)
+class DeficitList(ListOf):
+    """A non-empty list of deficits; its message lists the shipped option names."""
+
+    def __str__(self) -> str:
+        return ("a non-empty list of deficit option names (" + ", ".join(deficit_options())
+                + ") or deficit blocks with a _target_")
+
+
+DEFICIT_LIST = DeficitList(DeficitItem())
 PARAM = Pattern(r"[A-Za-z_]\w*", "the name of a parameter of the deficit")
 LEVELS = ListOf(Level(), distinct=True,
                 words="a non-empty list of distinct levels (numbers or strings), mildest first")
