@@ -224,3 +224,32 @@ def test_onset_sweep_plan_and_branch_equal_from_scratch(make_config, capsys):
     mine = epochs[epochs.run_id == run.run_id].sort_values("epoch")
     for column in ("train_loss", "train_acc", "test_loss", "test_acc", "lr"):
         np.testing.assert_array_equal(mine[column].to_numpy(), reference[column].to_numpy())
+
+
+# --- the removal design's answer (same module) ---------------------------------------------
+
+def test_removal_plan_takes_the_table_verdicts_and_the_leading_stretch():
+    plain = {"design": {"kind": "removal", "until": [5, 10, 20], "budget": "fixed_total",
+                        "recovery_epochs": None},
+             "schedule": {"epochs": EPOCHS}, "confidence": 0.95, "tolerance": TOLERANCE}
+    design = load_design(plain, list(range(len(BASE))))
+    cost = {5: [0.0, 0.1, -0.1, 0.05, 0.0, -0.05], 10: [0.1, 0.0, 0.2, -0.1, 0.1, 0.0],
+            20: [3.0, 2.5, 3.5, 2.8, 3.1, 2.9]}
+    rows = []
+    for spec in design.preview():
+        lost = 0.0 if spec.is_baseline else cost[spec.length][spec.seed] / 100
+        rows.append({"run_id": spec.run_id, "seed": spec.seed, "start_epoch": spec.start,
+                     "length": spec.length, "end_epoch": spec.end,
+                     "is_baseline": int(spec.is_baseline), "status": "done",
+                     "test_acc": BASE[spec.seed] - lost, "n_test": 10_000})
+    runs = pd.DataFrame(rows)
+    table = design.table(runs, 0.95, TOLERANCE)
+    answer = design.plan(runs, table)
+    assert [r.epoch for r in answer.rows] == [5, 10, 20]
+    assert [r.verdict for r in answer.rows] == list(table.sort_values("length").verdict)
+    assert [r.verdict for r in answer.rows] == [SAFE, SAFE, CRITICAL]
+    assert answer.latest == 10
+    # Source: scipy.stats.ttest_1samp(damages, tolerance), the window verdicts' test.
+    p20 = stats.ttest_1samp(cost[20], TOLERANCE).pvalue
+    assert answer.rows[2].p_value == pytest.approx(p20, rel=1e-9)
+    assert "may last until: epoch 10 (25% of training)" in format_epoch_plan(answer)

@@ -70,13 +70,13 @@ def _bounds(low: float, high: float) -> str:
 
 
 def _number(value: float) -> str:
-    return f"{value:+7.2f}" if not math.isnan(value) else f"{'-':>7}"
+    return f"{value:+9.2f}" if not math.isnan(value) else f"{'-':>9}"
 
 
 def _row_line(a: EpochAnswer, r: EpochRow, reference: bool = False) -> str:
     notes = []
     if reference:
-        mark, value, bounds, holm = "reference", f"{'0':>7}", "", ""
+        mark, value, bounds, holm = "reference", f"{'0':>9}", "", ""
     else:
         mark = MARKS.get(r.verdict, "?")
         value, bounds, holm = _number(r.value), _bounds(r.low, r.high), _bounds(r.holm_low,
@@ -95,7 +95,7 @@ def _row_line(a: EpochAnswer, r: EpochRow, reference: bool = False) -> str:
 def _head(a: EpochAnswer) -> str:
     w = WORDS[a.judged]
     level = f"{a.confidence:.0%} interval"
-    return (f"{w.epoch:>5} {'% of run':>8} {'seeds':>5} {w.value:>7} {level:>17} "
+    return (f"{w.epoch:>5} {'% of run':>8} {'seeds':>5} {w.value:>9} {level:>17} "
             f"{'Holm bounds':>17} {'verdict':>9}  note")
 
 
