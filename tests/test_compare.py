@@ -249,3 +249,12 @@ def test_compare_refuses_bad_requests_in_one_line(ladder, capsys, extra, words):
     assert main(["compare", *extra, "--results-dir", str(ladder), "--no-figure"]) == 2
     err = capsys.readouterr().err
     assert words in err and err.count("\n") == 1
+
+
+def test_compare_refuses_designs_without_window_curves(ladder, capsys):
+    assert main(["sweep", "experiment=tiny", "design=removal", "design.until=[2,4]", "seeds=1",
+                 "name=removal", f"results_dir={ladder}", "-q"]) == 0
+    capsys.readouterr()
+    assert main(["compare", "w8", "removal", "--results-dir", str(ladder), "--no-figure"]) == 2
+    err = capsys.readouterr().err
+    assert "compare reads sweeps of deficit windows" in err and "'removal'" in err

@@ -389,11 +389,19 @@ def check_inputs(views, against: str) -> None:
                         [str(v.folder) for v in views])
     if against not in AGAINST:
         raise bad_value("against", f"one of {', '.join(AGAINST)}", against)
-    axes = {v.layout.axis for v in views}
-    if len(axes) > 1:
-        raise SweepError("the sweeps place their windows differently ("
-                         + "; ".join(f"{v.name}: {v.design_summary}" for v in views)
-                         + "): compare sweeps of one kind of design")
+    for view in views:
+        if not comparable(view.layout):
+            raise SweepError(
+                f"compare reads sweeps of deficit windows (a curve per deficit length over "
+                f"window starts, one deficit); sweep {view.name!r} is {view.design_summary}"
+                + (" with deficit variants" if view.layout.variant_axis else "")
+                + ": read its table or plan instead")
+
+
+def comparable(layout: Layout) -> bool:
+    """Window designs: plannable, a curve per length over starts, no deficit variants."""
+    return (layout.plannable and layout.per_length and layout.axis == "start"
+            and not layout.variant_axis)
 
 
 def compare_sweeps(views, *, tolerance: float | None = None, confidence: float | None = None,

@@ -96,8 +96,8 @@ def edge_rows(c: Comparison, length: int) -> list[str]:
     """One line per sweep: where its critical edge lies on the shared starts."""
     width = max(len(r.label) for r in c.rungs)
     return [f"  {row.sweep:<{width}}  latest critical start {edge_value(row.critical_until):>4}"
-            f"   every later start safe from {edge_value(row.safe_from):>4}"
-            + ("" if row.located else "   (undetermined starts at the edge)")
+            f", every later start safe from {edge_value(row.safe_from):>4}"
+            + ("" if row.located else "; undetermined at the edge")
             for row in c.edges[c.edges.length == length].itertuples()]
 
 
@@ -119,11 +119,11 @@ def edge_summary(c: Comparison, length: int) -> str:
         return f"every sweep reads the edge alike ({where}), but undetermined starts blur it"
     if moves.backed:
         rows = c.changes[(c.changes.length == length) & c.changes.differs]
-        where = "; ".join(f"start {r.start}: {r.sweep} minus {r.against} "
-                          f"{_interval(r.difference, r.low, r.high).strip()}"
-                          for r in rows.head(3).itertuples())
-        return (f"the edge MOVES along the sweeps (latest critical start {until}; safe from "
-                f"{safe}), and the damage differs where a verdict changes ({where})")
+        where = "; ".join(f"start {r.start}: {r.sweep} minus {r.against} {r.difference:+.2f} "
+                          f"[{r.low:+.2f}, {r.high:+.2f}]" for r in rows.head(3).itertuples())
+        return (f"the edge MOVES along the sweeps by their verdicts (latest critical start "
+                f"{until}; safe from {safe}), and the damage differs at a start where a verdict "
+                f"changes ({where}): the sweeps disagree near the edge")
     return (f"the verdicts place the edge differently (latest critical start {until}; safe "
             f"from {safe}), but wherever a verdict changes near the edge the difference of "
             "damage is within its interval of zero: these seeds do not show that it moves")
