@@ -5,7 +5,7 @@ interval band in its own colour (the palette of :mod:`periodscan.views.figures`,
 the sweeps were given); the marker says the verdict (filled: critical, hollow: safe, cross:
 undetermined) and the legend names each sweep's critical edge. The bottom panel draws each
 difference (a sweep minus the sweep it is compared with) with its interval as a bar, in the
-colour of the later sweep. Saved at a fixed size, written atomically.
+colour of the later sweep. Its size is set by the number of lengths; written atomically.
 """
 
 from __future__ import annotations
