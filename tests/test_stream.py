@@ -103,7 +103,7 @@ def test_folder_files_and_labels_follow_torchvision_image_folder(tmp_path):
     data = stream_image_folder(str(tmp_path / "img"), test_root=str(tmp_path / "img"),
                                image_size=None, mean=[0.0, 0.0, 0.0], std=[1.0, 1.0, 1.0],
                                num_workers=0)
-    assert list(data.train.files) == [path for path, _ in reference.samples]
+    assert [os.fsdecode(f) for f in data.train.files] == [path for path, _ in reference.samples]
     assert data.y_train.tolist() == reference.targets
     for i in range(len(reference)):  # unscaled pixels equal torchvision's decode
         assert torch.equal(data.train[i][0], reference[i][0].float())

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import hashlib
 import multiprocessing
+import os
 import sys
 from collections.abc import Iterator, Sequence
 from typing import Any
@@ -283,7 +284,10 @@ def read_labels(dataset: Dataset, field: str, num_workers: int) -> torch.Tensor:
 
 
 def dataset_files(dataset: Dataset) -> list[str] | None:
-    """The file behind each example (``files``, or torchvision's ``samples``), else None."""
+    """The path of the file behind each example (``files``, or torchvision's ``samples``).
+
+    None when the Dataset names no files, or names something else than one path per example.
+    """
     if isinstance(dataset, Subset):
         inner = dataset_files(dataset.dataset)
         return None if inner is None else [inner[i] for i in dataset.indices]
@@ -293,9 +297,9 @@ def dataset_files(dataset: Dataset) -> list[str] | None:
         files = [s[0] if isinstance(s, (tuple, list)) else None for s in samples]
     if files is None or len(files) != len(dataset):
         return None
-    if not all(isinstance(f, str) for f in files):
+    if not all(isinstance(f, (str, bytes, os.PathLike)) for f in files):
         return None
-    return list(files)
+    return [os.fsdecode(f) for f in files]
 
 
 def check_examples(data: StreamData, count: int = 8) -> None:
