@@ -21,6 +21,7 @@ import yaml
 
 from periodscan.analysis.mcnemar import mcnemar_frame
 from periodscan.analysis.planner import check_question, plan_from_table
+from periodscan.analysis.recovery import join_recovery, recovery_frame
 from periodscan.analysis.sensitivity import TableOptions, sensitivity_table
 from periodscan.designs import Design, Layout, load_design
 from periodscan.errors import PeriodscanError, SweepError
@@ -160,26 +161,41 @@ class SweepView:
 
     # --- answers -------------------------------------------------------------------------
     def table(self, tolerance: float | None = None, confidence: float | None = None,
-              with_mcnemar: bool = True) -> pd.DataFrame:
-        """Sensitivity table with verdicts at ``tolerance`` and ``confidence`` (config defaults)."""
+              with_mcnemar: bool = True, recovery: bool = False) -> pd.DataFrame:
+        """Sensitivity table with verdicts at ``tolerance`` and ``confidence`` (config defaults);
+        ``recovery`` joins in each window's gap trend (:meth:`recovery`; not in the CSV)."""
         tolerance = self.tolerance if tolerance is None else tolerance
         confidence = self.confidence if confidence is None else confidence
         check_question(1, tolerance, confidence, None)
         mcnemar = self.mcnemar if with_mcnemar else None
         classes = self.meta.get("num_classes")
         if self.design is None:
-            return sensitivity_table(self.runs, self.schedule_epochs,
-                                     TableOptions(confidence=confidence, tolerance=tolerance,
-                                                  num_classes=classes), mcnemar)
-        return self.design.table(self.runs, confidence, tolerance, mcnemar,
-                                 num_classes=classes)
+            table = sensitivity_table(self.runs, self.schedule_epochs,
+                                      TableOptions(confidence=confidence, tolerance=tolerance,
+                                                   num_classes=classes), mcnemar)
+        else:
+            table = self.design.table(self.runs, confidence, tolerance, mcnemar,
+                                      num_classes=classes)
+        return join_recovery(table, self.recovery(tolerance, confidence)) if recovery else table
+
+    def recovery(self, tolerance: float | None = None,
+                 confidence: float | None = None) -> pd.DataFrame:
+        """Per window: the paired gap's trend over its last clean epochs, and whether it is
+        still recovering (:func:`periodscan.analysis.recovery.recovery_frame`)."""
+        design = self.design
+        return recovery_frame(
+            self.runs, self.epochs, self.schedule_epochs,
+            tolerance=self.tolerance if tolerance is None else tolerance,
+            confidence=self.confidence if confidence is None else confidence,
+            family=design.family if design else "length",
+            family_size=design.holm_family_size() if design else None)
 
     def plan(self, length: int | None = None, tolerance: float | None = None,
              confidence: float | None = None, production_epochs: int | None = None) -> Any:
         """The design's answer to its planning question (:meth:`Design.plan`): for window
         designs a :class:`PlanAnswer` for a deficit of ``length`` epochs (default: shortest
         measured)."""
-        table = self.table(tolerance, confidence, with_mcnemar=False)
+        table = self.table(tolerance, confidence, with_mcnemar=False, recovery=True)
         if self.design is not None:
             return self.design.plan(self.runs, table, length=length,
                                     production_epochs=production_epochs, sweep=self.name)

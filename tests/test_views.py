@@ -121,8 +121,9 @@ def test_interval_footer_names_each_method_once():
     assert summary == ("intervals: Student t (3 windows), BCa bootstrap (2 windows), "
                        "none (1 window with fewer than 2 seeds); sd floor applied to 1")
     text = format_table(table)
-    footer = text.splitlines()[-1]
+    footer, established = text.splitlines()[-2:]  # the bound follows: windows are open
     assert footer.endswith(summary) and "interval method" not in text
+    assert established.startswith("established: a 5-epoch deficit does less than")
     assert "Holm-corrected over the windows of each length" in footer
     html = table_html(table, WINDOW, 30)
     assert summary in html and "t, t" not in html

@@ -19,6 +19,8 @@ from typing import Any
 
 import pandas as pd
 
+from periodscan.analysis.established import Established, family_bound
+from periodscan.analysis.recovery import Trend, trend_of
 from periodscan.analysis.verdicts import CRITICAL, SAFE
 from periodscan.errors import SweepError, bad_value
 
@@ -31,6 +33,7 @@ RUNS_LOST = "runs_lost"  # count: failed or unfinished window runs, not in the m
 RUNS_DIVERGED = "runs_diverged"  # count: diverged or at chance, counted in the means
 BASELINES_DIVERGED = "baselines_diverged"  # starts: compared with a baseline at chance/diverged
 SCREENED = "screened"  # starts: measured on their first seeds only, not confirmed
+STILL_RECOVERING = "still_recovering"  # starts: the paired gap still falls at the end
 UNDETERMINED = "undetermined"  # count: open starts; seeds: extra seeds to settle them all
 METHOD = "method"  # count: Holm family size when padded beyond the measured starts
 PROXY = "proxy"  # the proxy-model caveat
@@ -58,6 +61,7 @@ class StartAnswer:
     failed: int = 0
     unfinished: int = 0
     confirmed: bool = True  # False: an adaptive design screened it on its first seeds
+    trend: Trend | None = None  # the gap's trend at the end (analysis/recovery.py), if read
 
 
 @dataclass(frozen=True)
@@ -94,6 +98,8 @@ class PlanAnswer:
     best: StartAnswer | None
     best_is_safe: bool
     facts: list[Fact] = field(default_factory=list)
+    #: Upper bound on damage at every start of this length (analysis/established.py).
+    established: Established | None = None
 
     def frame(self) -> pd.DataFrame:
         """One row per measured start."""
@@ -181,7 +187,7 @@ def plan_from_table(table: pd.DataFrame, length: int, schedule_epochs: int,
         recovery_epochs=int(r.recovery_epochs), short_recovery=bool(r.short_recovery),
         diverged=int(r.diverged), baseline_diverged=int(r.baseline_diverged),
         failed=int(r.failed), unfinished=int(r.unfinished),
-        confirmed=bool(getattr(r, "confirmed", True)),
+        confirmed=bool(getattr(r, "confirmed", True)), trend=trend_of(r),
     ) for r in rows.itertuples()]
     safe = [s.start for s in starts if s.verdict == SAFE]
     critical = [s.start for s in starts if s.verdict == CRITICAL]
@@ -197,6 +203,7 @@ def plan_from_table(table: pd.DataFrame, length: int, schedule_epochs: int,
     answer = PlanAnswer(sweep, length, used, used == length, measured, tolerance, confidence,
                         schedule_epochs, production_epochs, starts, safe, critical, undetermined,
                         safe_from, best, bool(safe_rows))
+    answer.established = family_bound(rows, holm_family)
     answer.facts = plan_facts(answer, budget, recovery_epochs, holm_family)
     return answer
 
@@ -223,6 +230,9 @@ def plan_facts(a: PlanAnswer, budget: str, recovery_epochs: int | None,
     shaky = tuple(s.start for s in a.starts if s.baseline_diverged)
     if shaky:
         facts.append(Fact(BASELINES_DIVERGED, starts=shaky))
+    recovering = tuple(s.start for s in a.starts if s.trend and s.trend.still_recovering)
+    if recovering:
+        facts.append(Fact(STILL_RECOVERING, starts=recovering))
     screened = tuple(s.start for s in a.starts if not s.confirmed)
     if screened:
         facts.append(Fact(SCREENED, starts=screened))

@@ -117,7 +117,8 @@ def seed_slopes(curves: pd.DataFrame, span: int) -> pd.DataFrame:
     """One row per (window, seed): the gap's slope over its last ``min(clean, span)`` epochs.
 
     Columns: the window keys, seed, clean_epochs, fit_epochs, slope, stderr (points per
-    epoch). A seed missing any epoch of the stretch (a run that diverged) gets no slope.
+    epoch), gap_end (the gap at the run's last epoch). A seed missing any epoch of the
+    stretch (a run that diverged) gets no slope.
     """
     rows = []
     for (variant, start, length, seed), one in curves.groupby([*KEYS, "seed"], sort=True):

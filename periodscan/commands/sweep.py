@@ -32,14 +32,13 @@ def run(args: argparse.Namespace) -> int:
     from periodscan.jobs.preview import preview
     from periodscan.jobs.sweep import run_sweep
     from periodscan.views.dry_run import format_preview
-    from periodscan.views.tables import format_table
 
     cfg = compose_config(args.overrides, args.config_dir)
     if args.dry_run:
         print(format_preview(preview(cfg)))
         return 0
     outcome = run_sweep(cfg, quiet=args.quiet, command=command_line("sweep", args))
-    print(format_table(outcome.table, outcome.layout))
+    print(table_text(outcome))
     for note in outcome.notes:
         print(note)
     print(f"\ntrained {outcome.epochs_shared} epochs in the tree for runs that would take "
@@ -49,6 +48,19 @@ def run(args: argparse.Namespace) -> int:
               f"{outcome.counts['diverged']} (see the ledger)")
     print(f"results: {outcome.folder}/sensitivity.csv, {outcome.folder}/sensitivity.png")
     return exit_status(outcome.runs, cfg.schedule.optimizer.lr)
+
+
+def table_text(outcome) -> str:
+    """The sweep's table as text, with each window's gap trend and the established bound
+    (sensitivity.csv keeps the table without them)."""
+    from periodscan.analysis.recovery import join_recovery
+    from periodscan.api import load_sweep
+    from periodscan.views.tables import format_table
+
+    with load_sweep(outcome.folder) as view:
+        table = join_recovery(outcome.table, view.recovery())
+        family = view.design.holm_family_size() if view.design else None
+    return format_table(table, outcome.layout, family_size=family)
 
 
 def exit_status(runs, lr) -> int:

@@ -10,6 +10,7 @@ which design a sweep used.
 * :mod:`~periodscan.views.progress` - a sweep's status as text and JSON;
 * :mod:`~periodscan.views.dry_run` - the run tree and estimate of ``sweep --dry-run``;
 * :mod:`~periodscan.views.forecast` - the Fisher forecast as text;
+* :mod:`~periodscan.views.recovery` - words for a still-recovering gap and the established bound;
 * :mod:`~periodscan.views.figures` - PNG figures (matplotlib);
 * :mod:`~periodscan.views.markup`, :mod:`~periodscan.views.html_results`,
   :mod:`~periodscan.views.html` - the self-contained report page;

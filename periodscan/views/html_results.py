@@ -10,6 +10,12 @@ from periodscan.analysis.stats import BOOTSTRAP_MIN_SEEDS
 from periodscan.designs.layout import Layout
 from periodscan.views.markup import bullet_list, definition_list, escape, number
 from periodscan.views.plan import best_line, describe_stretch, plan_notes, safe_from_line
+from periodscan.views.recovery import (
+    METHOD_ESTABLISHED,
+    METHOD_TREND,
+    established_lines,
+    established_text,
+)
 from periodscan.views.tables import row_notes
 from periodscan.views.words import (
     DIVERGED_WORDS,
@@ -37,6 +43,8 @@ def plan_html(plan: PlanAnswer) -> str:
     if plan.best is not None:
         label, text = best_line(plan)
         rows.append((label, escape(text)))
+    if plan.undetermined_starts and plan.established is not None:
+        rows.append(("established", escape(established_text(plan.established, "start"))))
     head = f"{plan.length_used}-epoch deficit"
     if not plan.length_measured:
         head = f"{plan.length_asked}-epoch deficit (answered from {plan.length_used} epochs)"
@@ -95,6 +103,8 @@ def table_html(table: pd.DataFrame, layout: Layout, epochs: int) -> str:
     out.append("</table></div>")
     out.append(f"<p class='fig-note'>{escape(interval_summary(table))}; Holm-corrected over "
                f"{escape(layout.family_words)}.</p>")
+    out += [f"<p class='fig-note'>{escape(line)}</p>"
+            for line in established_lines(table, layout.per_length)]
     return "".join(out)
 
 
@@ -145,5 +155,5 @@ def method_html(table: pd.DataFrame, layout: Layout) -> str:
         "unfinished runs are left out of means and counted in the notes.",
         "Starts are also given as a fraction of the schedule; mapping them onto a longer "
         "production schedule assumes sensitivity scales with the fraction of training.",
-        PROXY_CAVEAT,
+        METHOD_TREND, METHOD_ESTABLISHED, PROXY_CAVEAT,
     ])

@@ -10,6 +10,7 @@ from typing import Any
 from periodscan.analysis import planner as facts
 from periodscan.analysis.planner import Fact, PlanAnswer, StartAnswer
 from periodscan.analysis.verdicts import CRITICAL, SAFE
+from periodscan.views.recovery import established_text, recovering_text, trend_note
 from periodscan.views.tables import MARKS, open_note
 from periodscan.views.words import (
     DIVERGED_WORDS,
@@ -78,6 +79,8 @@ def plan_summary(a: PlanAnswer) -> list[str]:
     if a.best is not None:
         label, text = best_line(a)
         out.append(f"{label}: {text}")
+    if a.undetermined_starts and a.established is not None:
+        out.append(f"established: {established_text(a.established, 'start')}")
     return out
 
 
@@ -91,6 +94,8 @@ def _start_line(s: StartAnswer, production: bool) -> str:
         notes += [note] if note else []
     if s.short_recovery:
         notes.append(f"only {s.recovery_epochs} clean epochs after")
+    if s.trend is not None and s.trend.still_recovering:
+        notes.append(trend_note(s.trend.slope, s.trend.fit_epochs))
     return (f"{s.start:>5} {s.start_frac:>8.0%}"
             + (f" {epoch_number(s.production_start):>11}" if production else "")
             + f" {s.seeds:>5} {damage} {bounds:>17} {MARKS.get(s.verdict, s.verdict):>12}"
@@ -121,6 +126,9 @@ def _starts(values: tuple[int, ...]) -> str:
 
 def fact_text(a: PlanAnswer, fact: Fact) -> str:
     """One fact of the answer in words."""
+    if fact.code == facts.STILL_RECOVERING:
+        return " ".join(recovering_text(s.start, s.trend, a.confidence) for s in a.starts
+                        if s.start in fact.starts and s.trend is not None)
     phrase = {
         facts.LENGTH_SUBSTITUTED: lambda: (
             f"A {a.length_asked}-epoch deficit was not measured; this answer uses the nearest "

@@ -17,6 +17,7 @@ import pandas as pd
 
 from periodscan.analysis.planner import PlanAnswer, check_question
 from periodscan.analysis.readings import fisher_by_epoch
+from periodscan.analysis.recovery import join_recovery
 from periodscan.designs.layout import Layout
 from periodscan.engine.checkpoint import write_atomic
 from periodscan.errors import SweepError
@@ -101,6 +102,7 @@ def write_report(view, *, tolerance: float | None = None, confidence: float | No
     table = view.table(tolerance, confidence)
     csv_path = write_table_csv(table, folder / TABLE_CSV)
     parquet_path = write_table_parquet(table, folder / TABLE_PARQUET)
+    table = join_recovery(table, view.recovery(tolerance, confidence))  # page only, not files
     layout, title = view.layout, sweep_title(view.config)
     fisher = fisher_by_epoch(view.extras)
     finished = bool(len(table)) and bool((table.seeds > 0).any())

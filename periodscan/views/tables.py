@@ -8,6 +8,7 @@ import pandas as pd
 
 from periodscan.analysis.verdicts import CRITICAL, SAFE, UNDETERMINED
 from periodscan.designs.layout import WINDOW, Layout
+from periodscan.views.recovery import established_lines, row_trend_note
 from periodscan.views.words import DIVERGED_WORDS, interval_summary, more_seeds_phrase
 
 MARKS = {CRITICAL: "CRITICAL", SAFE: "safe", UNDETERMINED: "?"}
@@ -37,6 +38,8 @@ def row_notes(row) -> list[str]:
         notes.append("! damage")
     if row.short_recovery:
         notes.append(f"only {row.recovery_epochs} epochs to recover")
+    trend = row_trend_note(row)  # present when the table was joined with its trends
+    notes += [trend] if trend else []
     counts = [("diverged", f"{DIVERGED_WORDS} (counted)"),
               ("baseline_diverged", f"baseline(s) {DIVERGED_WORDS}"),
               ("failed", "failed (not in mean)"), ("unfinished", "unfinished"),
@@ -57,11 +60,13 @@ def _cells(row, layout: Layout) -> str:
     return f"{window:>12} {row.seeds:>5} {base} {run} {damage} {bounds:>17}"
 
 
-def format_table(table: pd.DataFrame, layout: Layout = WINDOW) -> str:
+def format_table(table: pd.DataFrame, layout: Layout = WINDOW, *,
+                 family_size: int | None = None) -> str:
     """Sensitivity table as aligned text, with verdicts when the table has them.
 
     ``layout`` (the design's :class:`~periodscan.designs.layout.Layout`) labels the windows
-    and names the Holm family.
+    and names the Holm family; ``family_size`` is the Holm family when a design counted more
+    candidates than it measured (for the footer's established bound).
     """
     if table.empty:
         return "(no finished windows yet)"
@@ -83,4 +88,5 @@ def format_table(table: pd.DataFrame, layout: Layout = WINDOW) -> str:
         footer = (f"verdicts against a tolerance of {table.tolerance.iloc[0]:g} points, "
                   f"Holm-corrected over {layout.family_words}; {footer}")
     lines.append(footer)
+    lines += established_lines(table, layout.per_length, family_size)
     return "\n".join(lines)
