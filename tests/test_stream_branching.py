@@ -3,8 +3,9 @@ trained from scratch, bit for bit (DESIGN.md section 4, as tests/test_branching.
 for in-memory data).
 
 Two streamed paths: an image folder (``data=image_folder_stream``, two loader workers) and a
-user's Dataset of PNG files (``data=dataset``, one worker). The model has BatchNorm and dropout,
-the schedule shifts and flips (augmentation after loading), the deficit blurs each batch.
+user's Dataset of PNG files (``data=dataset``, one worker) trained by a user's step (mixup,
+tests/user_steps.py, drawing from the generator it is handed). The model has BatchNorm and
+dropout, the schedule shifts and flips (augmentation after loading), the deficit blurs.
 """
 
 from __future__ import annotations
@@ -59,9 +60,13 @@ def replay_leaf(prep, run_id):
     return checkpoint.from_bytes(result.checkpoint)
 
 
+STEPS = {"folder": {"_target_": "periodscan.steps.CrossEntropy"},
+         "dataset": {"_target_": "user_steps.Mixup", "alpha": 0.4, "max_grad_norm": 1.0}}
+
+
 @pytest.mark.parametrize("kind", ["folder", "dataset"])
 def test_streamed_branch_equals_from_scratch(make_config, tmp_path, kind):
-    cfg = make_config(seeds=1, data=streamed_data(kind, tmp_path),
+    cfg = make_config(seeds=1, data=streamed_data(kind, tmp_path), step=STEPS[kind],
                       model={"_target_": "periodscan.models.CNN2d", "channels": 8,
                              "batchnorm": True, "dropout": 0.2},
                       design__starts=[1, 3], design__lengths=[2],
