@@ -11,10 +11,11 @@ be a pure function of the index (no random transforms in it: augmentation belong
 ``schedule.augment`` or a deficit, which draw from keyed generators); the trial in
 :func:`check_examples` reads examples twice to catch one that is not.
 
-Loader worker processes are started once per training process and kept (``persistent_workers``)
-and are forked, not spawned, on Linux (a local executor's worker is itself a loky process,
-whose default start method cannot start them). A process that may not have children (a Dask
-worker, which is a daemon) reads in the training process instead; the numbers are the same.
+Loader worker processes start on first use and are kept while the data stays loaded in the
+training process (``persistent_workers``). They are forked, not spawned, on Linux: a local
+executor's worker is itself a loky process, whose default start method cannot start them. A
+process that may not have children (a Dask worker, which is a daemon) reads in the training
+process instead; the numbers are the same.
 """
 
 from __future__ import annotations
@@ -123,10 +124,6 @@ class StreamData:
             for x in one_pass(chunk, self.num_workers):
                 digest.update(x.numpy().tobytes())
         return digest.hexdigest()
-
-    def close(self) -> None:
-        """Stop the loader's worker processes (they also stop when this object is dropped)."""
-        self._loader = None
 
     def _loaded(self) -> DataLoader:
         if self._loader is None:

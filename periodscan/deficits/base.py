@@ -19,6 +19,10 @@ class Deficit:
     Override :meth:`apply` to change a batch, :meth:`select` to change which examples the epoch
     sees, and :meth:`prepare` for per-run fixed choices. Set ``disables_augmentation = True`` for
     a deficit that switches the schedule's augmentation off.
+
+    ``data`` may be in memory (:class:`periodscan.data.TensorData`) or streamed
+    (:class:`periodscan.data.StreamData`): both have ``y_train``, ``num_classes``,
+    ``input_shape`` and ``train_examples(idx)``; only in-memory data has ``x_train``.
     """
 
     disables_augmentation: bool = False
