@@ -3,9 +3,9 @@
 git's index keeps the same kind of record for a working tree (size, modification and
 status-change times, inode per file) and re-reads a file only when one of them differs. Here
 the record lives in a small SQLite file in periodscan's cache folder (``$PERIODSCAN_CACHE``, or
-``~/.cache/periodscan``). The status-change time (ctime) is set by the kernel on every write
-and on every ``os.utime``, and no user call sets it back, so a file rewritten with its old size
-and its old modification time restored is still re-read (tests/test_stream.py checks this).
+``~/.cache/periodscan``). The status-change time (ctime) moves on every write and on every
+``os.utime`` call, so a file rewritten with its old size and its old modification time put
+back is still re-read (tests/test_stream.py checks this).
 Without a writable cache folder every file is read every time: slower, never wrong.
 """
 

@@ -35,9 +35,8 @@ from periodscan.errors import DataError, bad_value
 class ImageFiles(Dataset):
     """Images read from their files on every access; ``(C, H, W)`` float32 and the label.
 
-    ``files`` is kept as one numpy array of encoded paths (not a list of Python strings): a
-    byte per character, and forked loader workers share its pages instead of copying them as
-    they touch reference counts.
+    ``files`` is one numpy array of encoded paths: a byte per character, no Python object
+    per path, for folders of hundreds of thousands of files.
     With ``mean``/``std`` (shape (C,)) pixels are standardised as the in-memory loader does:
     ``(x - mean) / std`` in float32.
     """
