@@ -19,7 +19,7 @@ from periodscan.analysis.compare import (
     Pairing,
 )
 from periodscan.views.tables import MARKS
-from periodscan.views.words import PROXY_CAVEAT, points
+from periodscan.views.words import PROXY_CAVEAT, json_ready, points
 
 #: Long lines (edge summaries, notes) are wrapped to this many characters.
 WIDTH = 100
@@ -169,28 +169,17 @@ def format_comparison(c: Comparison, figure: str | None = None) -> str:
     return "\n".join(lines)
 
 
-def _plain(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if hasattr(value, "item"):  # numpy scalars
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
 
 def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
-    return [_plain(row) for row in frame.astype(object).to_dict(orient="records")]
+    return [json_ready(row) for row in frame.astype(object).to_dict(orient="records")]
 
 
 def comparison_record(c: Comparison, figure: str | None = None) -> dict[str, Any]:
     """Plain dict of the comparison (NaN as None), what ``--json`` prints."""
     return {
         "tolerance": c.tolerance, "confidence": c.confidence, "against": c.against,
-        "lengths": c.lengths, "sweeps": [_plain(asdict(r)) for r in c.rungs],
-        "pairings": [_plain(asdict(p)) for p in c.pairings],
+        "lengths": c.lengths, "sweeps": [json_ready(asdict(r)) for r in c.rungs],
+        "pairings": [json_ready(asdict(p)) for p in c.pairings],
         "curves": _records(c.curves), "differences": _records(c.differences),
         "edges": _records(c.edges), "edge_moves": _records(c.edge_moves),
         "verdict_changes": _records(c.changes),

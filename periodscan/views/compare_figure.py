@@ -10,7 +10,6 @@ colour of the later sweep. Its size is set by the number of lengths; written ato
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import matplotlib
@@ -23,23 +22,11 @@ from matplotlib.lines import Line2D  # noqa: E402
 
 from periodscan.analysis.compare import Comparison  # noqa: E402
 from periodscan.views.compare import edge_value  # noqa: E402
-from periodscan.views.figures import PALETTE, TOLERANCE_COLOR  # noqa: E402
+from periodscan.views.figures import PALETTE, TOLERANCE_COLOR, save_figure  # noqa: E402
 
 MARKERS = {"critical": dict(marker="o"), "safe": dict(marker="o", mfc="white"),
            "undetermined": dict(marker="x")}
 
-
-def save_atomic(fig, path: str | Path) -> Path:
-    """Save under a temporary name beside ``path``, then rename: never a half-written PNG."""
-    path = Path(path)
-    tmp = path.with_name(f".{path.name}.tmp.png")
-    try:
-        fig.savefig(tmp)
-        os.replace(tmp, path)
-    finally:
-        plt.close(fig)
-        tmp.unlink(missing_ok=True)
-    return path
 
 
 def _edge_words(c: Comparison, sweep: str, length: int) -> str:
@@ -108,4 +95,4 @@ def comparison_figure(c: Comparison, path: str | Path, *, title: str = "") -> Pa
                       if not pd.isna(r.baseline_acc))
     subtitle = f"clean baselines: {first}"
     fig.suptitle(f"{title}\n{subtitle}" if title else subtitle, fontsize=10)
-    return save_atomic(fig, path)
+    return save_figure(fig, path)

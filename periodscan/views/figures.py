@@ -35,7 +35,7 @@ DAMAGE_CMAP = LinearSegmentedColormap.from_list(
     "periodscan_damage", ["#1b6f8a", "#9cc7d3", "#f7f5f0", "#e8a06f", "#9c2f12"])
 
 
-def _finish(fig, path: str | Path) -> Path:
+def save_figure(fig, path: str | Path) -> Path:
     """Save next to ``path`` under a temporary name, then rename: never a half-written PNG."""
     path = Path(path)
     tmp = path.with_name(f".{path.name}.tmp.png")
@@ -193,7 +193,7 @@ def sensitivity_curve(table: pd.DataFrame, path: str | Path, *, title: str = "",
                                              if has_fisher else ""))
     subtitle = _baseline_line(table)
     fig.suptitle(f"{title}\n{subtitle}" if title else subtitle, fontsize=10)
-    return _finish(fig, path)
+    return save_figure(fig, path)
 
 
 def _baseline_line(table: pd.DataFrame) -> str:
@@ -239,7 +239,7 @@ def heatmap(table: pd.DataFrame, path: str | Path, *, title: str = "") -> Path:
     ax.set_title((title + "\n" if title else "") + "C = critical, S = safe, ? = undetermined",
                  fontsize=9)
     fig.tight_layout()
-    return _finish(fig, path)
+    return save_figure(fig, path)
 
 
 def _window_panel(ax, epochs: pd.DataFrame, start: int, length: int, color: str,
@@ -293,7 +293,7 @@ def learning_curves(epochs: pd.DataFrame, windows: list[tuple[int, int]], path: 
     if title:
         fig.suptitle(title, fontsize=10)
     fig.tight_layout()
-    return _finish(fig, path)
+    return save_figure(fig, path)
 
 
 def pick_windows(table: pd.DataFrame, limit: int = 3,

@@ -17,6 +17,7 @@ from periodscan.views.words import (
     DIVERGED_WORDS,
     PROXY_CAVEAT,
     epoch_number,
+    json_ready,
     more_seeds_phrase,
     points,
 )
@@ -187,7 +188,7 @@ def epoch_plan_notes(a: EpochAnswer) -> list[str]:
 
 def epoch_plan_record(a: EpochAnswer) -> dict[str, Any]:
     """The answer as plain JSON-ready data (NaN and infinity become null), notes in words."""
-    record = _plain(asdict(a))
+    record = json_ready(asdict(a))
     record["notes"] = epoch_plan_notes(a)
     return record
 
@@ -196,14 +197,3 @@ def epoch_plan_json(a: EpochAnswer, indent: int | None = 2) -> str:
     """:func:`epoch_plan_record` as a JSON string (what ``periodscan plan --json`` prints)."""
     return json.dumps(epoch_plan_record(a), indent=indent)
 
-
-def _plain(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {k: _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if hasattr(value, "item"):  # numpy scalars
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value

@@ -16,6 +16,7 @@ from periodscan.views.words import (
     DIVERGED_WORDS,
     PROXY_CAVEAT,
     epoch_number,
+    json_ready,
     more_seeds_phrase,
     points,
 )
@@ -197,7 +198,7 @@ def plan_record(a: PlanAnswer) -> dict[str, Any]:
     start without a verdict (null for decided ones). ``facts``
     keeps the notes as codes and numbers, ``notes`` as sentences.
     """
-    record = _plain(asdict(a))
+    record = json_ready(asdict(a))
     for start, out in zip(a.starts, record["starts"], strict=True):
         decided = start.verdict in (SAFE, CRITICAL)
         out["more_seeds_text"] = None if decided else more_seeds_phrase(start.more_seeds)
@@ -209,14 +210,3 @@ def plan_json(a: PlanAnswer, indent: int | None = 2) -> str:
     """:func:`plan_record` as a JSON string (what ``periodscan plan --json`` prints)."""
     return json.dumps(plan_record(a), indent=indent)
 
-
-def _plain(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {k: _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if hasattr(value, "item"):  # numpy scalars
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value

@@ -9,7 +9,6 @@ each cell. Files are written like every periodscan figure: fixed size, temporary
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import matplotlib
@@ -34,18 +33,6 @@ SEVERITY_RAMP = LinearSegmentedColormap.from_list(
 SEVERITY_MAP_PNG = "severity_map.png"
 VARIANT_CURVES_PNG = "learning_curves.png"
 
-
-def save(fig, path: str | Path) -> Path:
-    """Save under a temporary name in the same folder, then rename (never a partial PNG)."""
-    path = Path(path)
-    tmp = path.with_name(f".{path.name}.tmp.png")
-    try:
-        fig.savefig(tmp)
-        os.replace(tmp, path)
-    finally:
-        plt.close(fig)
-        tmp.unlink(missing_ok=True)
-    return path
 
 
 def variant_colors(table: pd.DataFrame) -> dict[str, str]:
@@ -114,7 +101,7 @@ def variant_curves(table: pd.DataFrame, path: str | Path, *, title: str = "",
     axes[-1, 0].set_xlabel(layout.axis_title)
     heading = f"damage by {layout.variant_axis or 'variant'}, one line each"
     fig.suptitle(f"{title}\n{heading}" if title else heading, fontsize=10)
-    return save(fig, path)
+    return figures.save_figure(fig, path)
 
 
 def _map_cells(ax, damage: np.ndarray, verdicts: np.ndarray, span: float) -> None:
@@ -162,7 +149,7 @@ def severity_map(table: pd.DataFrame, path: str | Path, *, title: str = "",
     heading = ("damage by severity, mildest at the bottom\n"
                "C = critical, S = safe, ? = undetermined")
     fig.suptitle(f"{title}\n{heading}" if title else heading, fontsize=9)
-    return save(fig, path)
+    return figures.save_figure(fig, path)
 
 
 def worst_variant(table: pd.DataFrame) -> str:

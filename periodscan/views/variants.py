@@ -21,7 +21,7 @@ from periodscan.analysis.variants import StartRanking, label_column
 from periodscan.designs.layout import WINDOW, Layout
 from periodscan.views.plan import plan_notes, plan_record, plan_summary
 from periodscan.views.tables import MARKS, format_table
-from periodscan.views.words import PROXY_CAVEAT, points
+from periodscan.views.words import PROXY_CAVEAT, json_ready, points
 
 
 def variant_label(table: pd.DataFrame, key: str, layout: Layout = WINDOW) -> str:
@@ -129,23 +129,11 @@ def format_variant_plan(plan: VariantPlan) -> str:
     return "\n".join(lines)
 
 
-def _plain(value: Any) -> Any:
-    """JSON-ready: NaN and infinity become null, numpy scalars Python numbers."""
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if hasattr(value, "item"):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
 
 def variant_plan_record(plan: VariantPlan) -> dict[str, Any]:
     """The answer as plain data: per-variant plan records (as ``plan --json`` gives for one
     deficit), the severity answers and the ranking."""
-    return _plain({
+    return json_ready({
         "sweep": plan.sweep, "axis": plan.axis, "is_severity": plan.is_severity,
         "length_asked": plan.length_asked, "length_used": plan.length_used,
         "tolerance": plan.tolerance, "confidence": plan.confidence, "labels": plan.labels,

@@ -132,3 +132,16 @@ def interval_summary(table: pd.DataFrame) -> str:
     if floored:
         text += f"; sd floor applied to {floored}"
     return text
+
+
+def json_ready(value: Any) -> Any:
+    """Plain JSON data: dict keys as str, numpy scalars as Python numbers, NaN/inf as null."""
+    if isinstance(value, dict):
+        return {str(k): json_ready(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_ready(v) for v in value]
+    if hasattr(value, "item"):  # numpy scalars
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
