@@ -170,3 +170,15 @@ def test_a_finished_adaptive_folder_reads_by_the_adaptive_rule(tmp_path):
     screened = [s for s, n in seeds.items() if n < 3]
     assert (SCREENED in [f.code for f in answer.facts]) == bool(screened)
     assert [s.start for s in answer.starts if not s.confirmed] == sorted(screened)
+
+
+def test_dry_run_shows_the_first_round_with_its_own_seeds(tmp_path, capsys):
+    from periodscan.cli import main
+
+    args = ["sweep", "experiment=tiny", "design=adaptive", "design.length=3",
+            "design.initial_step=2", "design.seeds_initial=2", "design.seeds_max=3",
+            "seeds=5", f"results_dir={tmp_path}", "--dry-run"]
+    assert main(args) == 0
+    out = capsys.readouterr().out
+    assert "first round" in out and "over 2 seeds" in out  # seeds_initial, not the root seeds
+    assert not (tmp_path / "tiny").exists()

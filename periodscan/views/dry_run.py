@@ -60,7 +60,7 @@ def trunk_lines(tree: RunTree, seeds: list[int]) -> list[str]:
 def format_preview(preview) -> str:
     """The dry run's text; on a folder that holds part of the sweep, what is left to train."""
     p, tree = preview, preview.tree
-    seeds = p.prep.seeds
+    seeds = sorted({run.seed for run in tree.runs.values()})  # the first round's seeds
     lines = [format_tree(tree, seeds), ""]
     if p.first_round_only:
         lines.append("the design chooses later rounds from the results: this is its first round")
