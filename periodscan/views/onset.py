@@ -16,6 +16,7 @@ from periodscan.analysis.verdicts import CRITICAL, SAFE
 from periodscan.views.words import (
     DIVERGED_WORDS,
     PROXY_CAVEAT,
+    epoch_list,
     epoch_number,
     json_ready,
     more_seeds_phrase,
@@ -138,9 +139,6 @@ def format_epoch_plan(a: EpochAnswer) -> str:
     return "\n".join(lines)
 
 
-def _epochs(values: tuple[int, ...]) -> str:
-    return ", ".join(map(str, values))
-
 
 def fact_text(a: EpochAnswer, fact: Fact) -> str:
     """One fact of the answer in words."""
@@ -150,10 +148,10 @@ def fact_text(a: EpochAnswer, fact: Fact) -> str:
             "No onset-0 run finished: the delay cost cannot be measured, so no onset is "
             "judged (rerun the sweep to finish the reference runs)."),
         codes.LATER_WITHIN: lambda: (
-            f"Epoch(s) {_epochs(fact.starts)} are within the tolerance but come after an epoch "
+            f"Epoch(s) {epoch_list(fact.starts)} are within the tolerance but come after an epoch "
             "that is not; the answer takes only the leading stretch within the tolerance."),
         codes.SHORT_RECOVERY: lambda: (
-            f"Epoch(s) {_epochs(fact.starts)} leave little clean training after the deficit: "
+            f"Epoch(s) {epoch_list(fact.starts)} leave little clean training after the deficit: "
             "their damage is partly a model that has not recovered yet."),
         codes.PRODUCTION_MAPPING: lambda: (
             f"Production mapping: epoch e of this {a.schedule_epochs}-epoch proxy is shown as "

@@ -15,6 +15,7 @@ from periodscan.views.tables import MARKS, open_note
 from periodscan.views.words import (
     DIVERGED_WORDS,
     PROXY_CAVEAT,
+    epoch_list,
     epoch_number,
     json_ready,
     more_seeds_phrase,
@@ -121,9 +122,6 @@ def format_plan(a: PlanAnswer) -> str:
     return "\n".join(lines)
 
 
-def _starts(values: tuple[int, ...]) -> str:
-    return ", ".join(map(str, values))
-
 
 def fact_text(a: PlanAnswer, fact: Fact) -> str:
     """One fact of the answer in words."""
@@ -137,7 +135,7 @@ def fact_text(a: PlanAnswer, fact: Fact) -> str:
             f"same start does at least as much damage (conservative). Starts after epoch "
             f"{fact.starts[0]} were not measured for it."),
         facts.SHORT_RECOVERY: lambda: (
-            f"Start(s) {_starts(fact.starts)} leave little clean training after the deficit: "
+            f"Start(s) {epoch_list(fact.starts)} leave little clean training after the deficit: "
             "their damage is partly a model that has not yet recovered, which still matters if "
             "training is not extended."),
         facts.PRODUCTION_MAPPING: lambda: _production_text(a),
@@ -151,10 +149,10 @@ def fact_text(a: PlanAnswer, fact: Fact) -> str:
             f"{fact.count} window run(s) {DIVERGED_WORDS}; their final accuracy counts as "
             "damage."),
         facts.BASELINES_DIVERGED: lambda: (
-            f"Start(s) {_starts(fact.starts)} are compared with baseline run(s) that "
+            f"Start(s) {epoch_list(fact.starts)} are compared with baseline run(s) that "
             f"{DIVERGED_WORDS}: their damage is measured against a broken baseline."),
         facts.SCREENED: lambda: (
-            f"Start(s) {_starts(fact.starts)} were screened on their first seeds (their mean "
+            f"Start(s) {epoch_list(fact.starts)} were screened on their first seeds (their mean "
             "told the search which way to go) and are not confirmed; only starts measured at "
             "the seed cap get verdicts, so no data-dependent stopping enters a verdict. Starts "
             "between measured ones are assumed to follow the measured trend."),

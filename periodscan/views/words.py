@@ -145,3 +145,8 @@ def json_ready(value: Any) -> Any:
     if isinstance(value, float) and not math.isfinite(value):
         return None
     return value
+
+
+def epoch_list(values) -> str:
+    """'0, 10, 20' for a list of starts or epochs."""
+    return ", ".join(map(str, values))
