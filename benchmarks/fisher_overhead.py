@@ -25,10 +25,11 @@ from pathlib import Path
 import torch
 from hydra.utils import instantiate
 
-from periodscan.config import compose_config, seed_list, to_plain
+from periodscan.config import compose_config, to_plain
 from periodscan.engine.schedule import build_optimizer
 from periodscan.engine.segment import build_model, load_data
 from periodscan.engine.training import evaluate, train_epoch
+from periodscan.params import seed_list
 
 OUT = Path(__file__).parent / "results" / "fisher_overhead.txt"
 

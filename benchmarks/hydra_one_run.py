@@ -20,9 +20,16 @@ import hydra
 import torch
 from omegaconf import DictConfig, OmegaConf
 
-from periodscan.config import TRAINING_KEYS, plan_runs
+from periodscan.config import TRAINING_KEYS
+from periodscan.designs import load_design
 from periodscan.engine.segment import load_data, train_from_scratch
 from periodscan.engine.training import evaluate
+from periodscan.params import seed_list
+
+
+def plan_runs(plain: dict) -> list:
+    """The runs of a config's design (its first round), as a sweep would train them."""
+    return load_design(plain, seed_list(plain)).preview()
 
 
 @hydra.main(config_path="pkg://periodscan.configs", config_name="config", version_base="1.3")

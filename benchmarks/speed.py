@@ -45,12 +45,19 @@ import torch
 import torch.nn.functional as F
 from joblib.externals.loky import get_reusable_executor
 
-from periodscan.config import TRAINING_KEYS, compose_config, plan_runs, to_plain
+from periodscan.config import TRAINING_KEYS, compose_config, to_plain
+from periodscan.designs import load_design
 from periodscan.engine.schedule import build_optimizer
 from periodscan.engine.segment import build_model, load_data, train_from_scratch
 from periodscan.engine.training import train_epoch
 from periodscan.engine.tree import build_tree
 from periodscan.jobs.sweep import run_sweep
+from periodscan.params import seed_list
+
+
+def plan_runs(plain: dict) -> list:
+    """The runs of a config's design (its first round), as a sweep would train them."""
+    return load_design(plain, seed_list(plain)).preview()
 
 HERE = Path(__file__).resolve().parent
 SWEEPS = {
