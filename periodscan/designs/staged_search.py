@@ -1,0 +1,127 @@
+"""The search of the sequential design: which (start, severity level) cells to measure next.
+
+Pure functions of what is known about each measured cell: its label and whether it is settled.
+A settled cell has its final verdict (critical, safe, or undetermined when stopped for futility
+or at the seed cap); an unsettled one carries a provisional label from its interim mean damage
+(above the tolerance: critical, otherwise safe) that only steers the search.
+
+Two bisections, both assuming the damage is monotone between the cells they measured:
+
+* **Levels, at each measured start.** Levels are ordered mildest first; a start is first
+  measured at its mildest and most severe level. Between two measured levels whose labels
+  differ, the level halfway is measured, until the threshold (the least severe critical level,
+  the most severe safe level) is found between neighbouring levels.
+* **Starts.** Starts are first measured every ``initial_step`` epochs. Between two measured starts
+  whose answers differ (the label of some level, measured or implied by monotonicity), the start
+  halfway on the grid is measured, until neighbouring measured starts are ``resolution`` apart.
+
+Starts between two measured starts with the same answer are not measured: their answer is
+implied (:func:`implied_labels`). A change that begins and ends between two measured starts
+with the same answer is missed; choose ``initial_step`` below the narrowest stretch that matters.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+from periodscan.analysis.verdicts import CRITICAL, SAFE, UNDETERMINED
+
+#: Label of a level no measurement speaks for.
+UNKNOWN = "unknown"
+
+
+@dataclass(frozen=True)
+class Known:
+    """What the search knows about one measured cell."""
+
+    label: str  # critical, safe or undetermined (settled); critical or safe (provisional)
+    settled: bool
+
+
+def level_labels(cells: Mapping[int, Known], levels: int) -> list[str]:
+    """Labels of every level at one start: measured ones as known, the rest implied.
+
+    A level between two measured levels with the same label takes it; a level more severe than
+    a critical one is critical, one milder than a safe one is safe; otherwise unknown.
+    """
+    out = []
+    measured = sorted(cells)
+    for level in range(levels):
+        if level in cells:
+            out.append(cells[level].label)
+            continue
+        below = [cells[v].label for v in measured if v < level]
+        above = [cells[v].label for v in measured if v > level]
+        if below and above and below[-1] == above[0]:
+            out.append(below[-1])
+        elif below and below[-1] == CRITICAL:
+            out.append(CRITICAL)
+        elif above and above[0] == SAFE:
+            out.append(SAFE)
+        else:
+            out.append(UNKNOWN)
+    return out
+
+
+def middle(a: int, b: int, resolution: int) -> int | None:
+    """The grid point halfway between two measured starts, if there is one strictly between."""
+    point = a + ((b - a) // 2 // resolution) * resolution
+    return point if a < point < b else None
+
+
+def new_levels(cells: Mapping[int, Known]) -> list[int]:
+    """Levels to add at one start: halfway between neighbouring measured levels that differ."""
+    measured = sorted(cells)
+    wanted = []
+    for low, high in zip(measured, measured[1:], strict=False):
+        if cells[low].label != cells[high].label and high - low > 1:
+            wanted.append((low + high) // 2)
+    return wanted
+
+
+def first_levels(levels: int) -> list[int]:
+    """Where a new start is measured first: its mildest and most severe level."""
+    return sorted({0, levels - 1})
+
+
+def next_cells(known: Mapping[tuple[int, int], Known], levels: int,
+               resolution: int) -> list[tuple[int, int]]:
+    """New (start, level) cells to measure, in start then level order; [] when none."""
+    by_start: dict[int, dict[int, Known]] = {}
+    for (start, level), cell in known.items():
+        by_start.setdefault(start, {})[level] = cell
+    wanted = [(s, v) for s, cells in sorted(by_start.items()) for v in new_levels(cells)]
+    starts = sorted(by_start)
+    answers = {s: level_labels(by_start[s], levels) for s in starts}
+    for low, high in zip(starts, starts[1:], strict=False):
+        point = middle(low, high, resolution)
+        if point is not None and answers[low] != answers[high]:
+            wanted += [(point, v) for v in first_levels(levels)]
+    return [cell for cell in dict.fromkeys(wanted) if cell not in known]
+
+
+def implied_labels(known: Mapping[tuple[int, int], Known], levels: int,
+                   grid: list[int]) -> dict[tuple[int, int], str]:
+    """Label of every grid cell: measured, implied between levels, or implied between starts
+    whose answers agree (unknown where they do not)."""
+    by_start: dict[int, dict[int, Known]] = {}
+    for (start, level), cell in known.items():
+        by_start.setdefault(start, {})[level] = cell
+    starts = sorted(by_start)
+    answers = {s: level_labels(by_start[s], levels) for s in starts}
+    out = {}
+    for start in grid:
+        if start in answers:
+            labels = answers[start]
+        else:
+            before = [s for s in starts if s < start]
+            after = [s for s in starts if s > start]
+            same = before and after and answers[before[-1]] == answers[after[0]]
+            labels = answers[before[-1]] if same else [UNKNOWN] * levels
+        out.update({(start, v): label for v, label in enumerate(labels)})
+    return out
+
+
+__all__ = ["CRITICAL", "SAFE", "UNDETERMINED", "UNKNOWN", "Known", "first_levels",
+           "implied_labels", "level_labels", "middle", "new_levels", "next_cells"]

@@ -1,0 +1,70 @@
+"""The sequential design's search over starts and severity levels, on hand-made verdicts.
+
+Every case is a situation drawn out by hand: which cells are measured, what they showed, and
+which cells a bisection must measure next (or imply) if damage is monotone between them.
+"""
+
+from periodscan.designs.staged_search import (
+    CRITICAL,
+    SAFE,
+    UNDETERMINED,
+    UNKNOWN,
+    Known,
+    implied_labels,
+    level_labels,
+    new_levels,
+    next_cells,
+)
+
+C, S, U = (Known(label, True) for label in (CRITICAL, SAFE, UNDETERMINED))
+
+
+def test_one_level_bisects_between_starts_whose_verdicts_differ():
+    known = {(0, 0): C, (20, 0): S, (40, 0): S}
+    assert next_cells(known, levels=1, resolution=2) == [(10, 0)]
+    known[(10, 0)] = C
+    assert next_cells(known, levels=1, resolution=2) == [(14, 0)]  # halfway on the 2-grid
+
+
+def test_search_ends_when_neighbours_differ_only_at_the_resolution():
+    known = {(0, 0): C, (10, 0): C, (12, 0): S, (40, 0): S}
+    assert next_cells(known, levels=1, resolution=2) == []
+
+
+def test_undetermined_differs_from_safe_and_is_searched_too():
+    known = {(0, 0): S, (20, 0): U}
+    assert next_cells(known, levels=1, resolution=5) == [(10, 0)]
+
+
+def test_levels_bisect_between_differing_verdicts_at_one_start():
+    # mildest safe, most severe critical: the middle level decides the threshold
+    assert new_levels({0: S, 4: C}) == [2]
+    assert new_levels({0: S, 2: S, 4: C}) == [3]
+    assert new_levels({0: S, 3: S, 4: C}) == []  # threshold found between neighbours
+    assert new_levels({0: C, 4: C}) == []  # critical at the mildest: critical at every level
+
+
+def test_unmeasured_levels_follow_monotonicity():
+    assert level_labels({0: C}, 3) == [CRITICAL, CRITICAL, CRITICAL]
+    assert level_labels({2: S}, 3) == [SAFE, SAFE, SAFE]
+    assert level_labels({0: S, 4: S}, 5) == [SAFE] * 5
+    assert level_labels({0: S, 4: C}, 5) == [SAFE, UNKNOWN, UNKNOWN, UNKNOWN, CRITICAL]
+    assert level_labels({0: U, 2: U}, 3) == [UNDETERMINED] * 3
+
+
+def test_new_start_between_differing_answers_gets_both_end_levels():
+    known = {(0, 0): C, (0, 2): C, (20, 0): S, (20, 2): S}
+    assert next_cells(known, levels=3, resolution=4) == [(8, 0), (8, 2)]
+
+
+def test_starts_differing_only_at_a_middle_level_are_bisected():
+    # start 0: threshold between levels 0 and 2 is level 1 (critical); start 20: level 1 safe
+    known = {(0, 0): S, (0, 1): C, (0, 2): C, (20, 0): S, (20, 1): S, (20, 2): C}
+    assert next_cells(known, levels=3, resolution=4) == [(8, 0), (8, 2)]
+
+
+def test_implied_labels_fill_agreeing_gaps_and_leave_the_rest_unknown():
+    known = {(0, 0): C, (10, 0): C, (12, 0): S, (20, 0): S, (30, 0): U}
+    labels = implied_labels(known, 1, list(range(0, 31, 2)))
+    assert [labels[(s, 0)] for s in range(0, 31, 2)] == (
+        [CRITICAL] * 6 + [SAFE] * 5 + [UNKNOWN] * 4 + [UNDETERMINED])
