@@ -257,7 +257,12 @@ def main() -> None:
     parser.add_argument("--out", default=str(HERE / "results" / "speed.txt"))
     parser.add_argument("--no-same-moment", dest="same_moment", action="store_false",
                         help="skip the 1-worker (a)/(c) measurement with both started together")
+    parser.add_argument("--loop-only", action="store_true",
+                        help="only the per-epoch loop ratio (periodscan's epoch vs a minimal "
+                             "hand-written one), a minute instead of an hour")
     args = parser.parse_args()
+    if args.loop_only:
+        args.sweeps = []
     extra = ["data.n_train=1000"] if args.quick else []
 
     lines = [f"# periodscan speed benchmark  ({time.strftime('%Y-%m-%d %H:%M')}, "
