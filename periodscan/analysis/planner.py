@@ -36,6 +36,9 @@ SCREENED = "screened"  # starts: measured on their first seeds only, not confirm
 STILL_RECOVERING = "still_recovering"  # starts: the paired gap still falls at the end
 UNDETERMINED = "undetermined"  # count: open starts; seeds: extra seeds to settle them all
 METHOD = "method"  # count: Holm family size when padded beyond the measured starts
+SEQUENTIAL = "sequential"  # count: Holm family size; seeds: the cap (replaces METHOD)
+FUTILE = "futile"  # starts: stopped early, more seeds unlikely to decide them
+IMPLIED = "implied"  # starts: not trained, verdict implied by the measured starts around them
 PROXY = "proxy"  # the proxy-model caveat
 
 

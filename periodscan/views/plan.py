@@ -160,6 +160,22 @@ def fact_text(a: PlanAnswer, fact: Fact) -> str:
             f"{fact.count} start(s) undetermined at this tolerance; settling all of them would "
             f"likely take {more_seeds_phrase(fact.seeds)}."),
         facts.METHOD: lambda: _method_text(fact.count),
+        facts.SEQUENTIAL: lambda: (
+            f"Verdicts: group-sequential two-sided paired t tests of mean damage against the "
+            f"tolerance. Seeds were added in stages up to {fact.seeds:g}; at each stage a start "
+            "is compared with an alpha-spending boundary, and Holm's correction runs over all "
+            f"{fact.count} candidate starts of the design's grid (unmeasured ones never "
+            "rejected), a decided start passing its level on to the others. A start is decided "
+            "at the first stage that crosses, in the direction of its mean, and gets no more "
+            "seeds."),
+        facts.FUTILE: lambda: (
+            f"Start(s) {epoch_list(fact.starts)} were stopped early as undetermined: with "
+            "their observed mean and spread, the test at the last stage would be unlikely to "
+            "decide them (conditional power below design.futility)."),
+        facts.IMPLIED: lambda: (
+            f"Start(s) {epoch_list(fact.starts)} were not trained: their verdict is implied by "
+            "the measured starts on either side, which agree (damage assumed monotone between "
+            "them)."),
         facts.PROXY: lambda: PROXY_CAVEAT,
     }
     return phrase[fact.code]()

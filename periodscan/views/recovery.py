@@ -59,6 +59,8 @@ def established_lines(table: pd.DataFrame, per_length: bool = True,
         return []
     if family_size is None and "confirmed" in table and not table.confirmed.astype(bool).all():
         return []
+    if "stopped" in table:  # seeds added in stages: a fixed-sample bound would not hold
+        return []
     return [f"established: {established_text(b)}"
             for b in table_bounds(table, per_length, family_size)]
 

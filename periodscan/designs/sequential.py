@@ -1,0 +1,326 @@
+"""``design=sequential``: where a deficit of one length is critical, with seeds added in stages.
+
+The cheapest way this project has to answer the planning question. Three savings together:
+
+* **Starts by bisection.** Starts are measured every ``initial_step`` epochs first, then halfway
+  between measured starts whose answers differ, down to ``resolution`` epochs
+  (:mod:`periodscan.designs.staged_search`). Starts between two measured starts with the same
+  answer are not trained; the plan says they are implied.
+* **Severity by bisection.** With ``design.severity`` each start is measured at its mildest and
+  most severe level, then halfway between levels whose verdicts differ, so the threshold level
+  at each start takes about log2(levels) + 1 levels, not all of them.
+* **Seeds in stages.** Every window measured gets ``stages[0]`` seeds, then the next stage each
+  round until it is decided, stopped for futility, or at the cap (the last stage). Verdicts come
+  from group-sequential t tests with an alpha-spending function and Holm's correction over the
+  whole grid of candidate starts (:mod:`periodscan.analysis.staged_verdicts`), so deciding a clear
+  window after a few seeds keeps the error rate at the confidence level.
+
+Every run is the run a full grid would train (exact branching); rounds share one folder.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator
+from dataclasses import replace
+from typing import Any, ClassVar
+
+import pandas as pd
+
+from periodscan.analysis import planner
+from periodscan.analysis.planner import Fact
+from periodscan.analysis.sensitivity import TableOptions, resolution, sensitivity_table
+from periodscan.analysis.sequential import SPENDING, Stages
+from periodscan.analysis.staged_verdicts import (
+    DECIDED,
+    FUTILE,
+    OPEN,
+    StagedRule,
+    add_staged_verdicts,
+    seed_damages,
+)
+from periodscan.analysis.variant_plan import PlanSettings, variant_plan
+from periodscan.analysis.variants import variant_table
+from periodscan.analysis.verdicts import CRITICAL, SAFE
+from periodscan.designs.base import Design, Measured
+from periodscan.designs.layout import WINDOW
+from periodscan.designs.staged_search import Known, first_levels, implied_labels, next_cells
+from periodscan.designs.variants import SEVERITY_BLOCK, variants_summary
+from periodscan.engine.tree import RunSpec, baseline
+from periodscan.params import COUNT, EPOCH, Interval, ListOf, Options, bad_value
+
+STAGES = ListOf(Interval(int, 2, None), distinct=True,
+                words="a non-empty list of increasing seed counts (ints >= 2), "
+                      "e.g. [3, 5, 8, 12, 16]")
+
+
+class SequentialDesign(Design):
+    """Bisect over starts (and severity levels), add seeds in stages, stop each window early."""
+
+    kind: ClassVar[str] = "sequential"
+    more_rounds: ClassVar[bool] = True
+    layout: ClassVar = replace(WINDOW, family_words="every candidate start, in its "
+                               "group-sequential form (seeds added in stages)")
+    fields: ClassVar[dict] = {
+        "length": [COUNT],
+        "resolution": [COUNT],
+        "initial_step": [COUNT],
+        "first_start": [EPOCH],
+        "last_start": [EPOCH, None],
+        "stages": [STAGES],
+        "spending": [Options(SPENDING)],
+        "futility": [Interval(float, 0.0, 1.0, closed="left")],
+        "max_rounds": [COUNT],
+        "severity": [SEVERITY_BLOCK, None],
+        "deficits": [None],
+    }
+
+    def __init__(self, plain: dict[str, Any], seeds: list[int], state: Any = None):
+        super().__init__(plain, seeds, state)
+        self._check_block()
+        self.cells = _cells_from_state(state)
+        self.futile = _futile_from_state(state)
+        self.history: list[str] = []
+
+    def _check_block(self) -> None:
+        b = self.block
+        self.length = b["length"]
+        if self.length > self.epochs:
+            raise bad_value("design.length", f"an int in the range [1, {self.epochs}] "
+                            "(schedule.epochs)", self.length)
+        self.resolution, self.step = b["resolution"], b["initial_step"]
+        self.first = b["first_start"]
+        if self.step % self.resolution:
+            raise bad_value("design.initial_step", f"a multiple of design.resolution "
+                            f"({self.resolution})", self.step)
+        last = b.get("last_start")
+        self.last = (max(self.first, self.epochs - self.length - math.ceil(self.epochs / 10))
+                     if last is None else last)
+        if not self.first <= self.last <= self.epochs - self.length:
+            raise bad_value("design.last_start", f"an int in the range [{self.first}, "
+                            f"{self.epochs - self.length}] (design.first_start to the last start "
+                            f"whose window ends by epoch {self.epochs})", last)
+        if list(b["stages"]) != sorted(b["stages"]):
+            raise bad_value("design.stages", str(STAGES), b["stages"])
+        self.stages = Stages(tuple(int(n) for n in b["stages"]), b["spending"])
+
+    # --- the grid -----------------------------------------------------------------------
+    def grid(self) -> list[int]:
+        """Every candidate start: the Holm family of each variant."""
+        return list(range(self.first, self.last + 1, self.resolution))
+
+    def coarse(self) -> list[int]:
+        starts = list(range(self.first, self.last + 1, self.step))
+        return starts if starts[-1] == self.last else [*starts, self.last]
+
+    def level_count(self) -> int:
+        return max(len(self.variants), 1)
+
+    def key_of(self, level: int) -> str:
+        return self.variants[level].key if self.variants else ""
+
+    # --- what to train ----------------------------------------------------------------
+    def _first_cells(self) -> dict[tuple[int, int], int]:
+        """The first round: coarse starts at their mildest and most severe level."""
+        return {(s, v): self.stages.seeds[0] for s in self.coarse()
+                for v in first_levels(self.level_count())}
+
+    def preview(self) -> list[RunSpec]:
+        return self._runs(self._first_cells())
+
+    def rounds(self, measured: Measured) -> Iterator[list[RunSpec]]:
+        self.cells = self._first_cells()
+        self.futile = set()
+        for number in range(1, int(self.block["max_rounds"]) + 1):
+            yield self._runs(self.cells)
+            table = self.table(measured(), self.confidence, self.tolerance)
+            self.futile |= {c for c, k in self.stops(table).items() if k == FUTILE}
+            todo = self.next_round(table)
+            self.history.append(f"round {number}: {self._progress(table)}; "
+                                f"next: {len(todo)} window(s)" if todo else
+                                f"round {number}: {self._progress(table)}; settled")
+            if not todo:
+                break
+            if number == int(self.block["max_rounds"]):
+                self.history.append(f"stopped after design.max_rounds={number} rounds; some "
+                                    "windows are still open")
+                break
+            self.cells.update(todo)
+        self.last_table = table
+
+    def next_round(self, table: pd.DataFrame) -> dict[tuple[int, int], int]:
+        """Seeds per cell for the next round: open cells to their next stage, new cells."""
+        known = self.known(table)
+        todo = {}
+        for cell, n in self.cells.items():
+            row = known.get(cell)
+            if row is not None and not row.settled:
+                todo[cell] = self.stages.next_stage(n)
+        for cell in next_cells(known, self.level_count(), self.resolution):
+            todo.setdefault(cell, self.stages.seeds[0])
+        return {c: n for c, n in todo.items() if n is not None and n > self.cells.get(c, 0)}
+
+    def cell_of(self, row: Any) -> tuple[int, int]:
+        """(start, level index) of a table row."""
+        levels = {self.key_of(v): v for v in range(self.level_count())}
+        return int(row.start), levels[str(getattr(row, "variant", ""))]
+
+    def stops(self, table: pd.DataFrame) -> dict[tuple[int, int], str]:
+        """Why each measured cell gets no more seeds (``open`` when it still may)."""
+        return {self.cell_of(row): row.stopped for row in table.itertuples()}
+
+    def known(self, table: pd.DataFrame) -> dict[tuple[int, int], Known]:
+        """What the search knows about each measured cell, from the table."""
+        out = {}
+        for row in table.itertuples():
+            cell = self.cell_of(row)
+            settled = row.stopped != OPEN
+            label = row.verdict if settled else (
+                "critical" if row.damage > self.tolerance else "safe")
+            out[cell] = Known(label=label, settled=settled)
+        return out
+
+    def _progress(self, table: pd.DataFrame) -> str:
+        counts = table.stopped.value_counts().to_dict() if len(table) else {}
+        seeds = sum(self.cells.values())
+        return (f"{len(self.cells)} window(s), {seeds} window-seeds; "
+                + ", ".join(f"{n} {k}" for k, n in sorted(counts.items())))
+
+    def _runs(self, cells: dict[tuple[int, int], int]) -> list[RunSpec]:
+        runs = [RunSpec(seed=seed, start=start, length=self.length, end=self.epochs,
+                        variant=self.key_of(level))
+                for (start, level), n in sorted(cells.items()) for seed in range(n)]
+        return runs + [baseline(seed, self.epochs) for seed in range(max(cells.values()))]
+
+    # --- reading back -----------------------------------------------------------------
+    def runs_used(self, runs: pd.DataFrame) -> pd.DataFrame:
+        """Baselines up to the most seeds any window has; each window at its own seeds."""
+        if not self.cells:
+            return runs[runs.end_epoch == self.epochs]
+        keys = {self.key_of(v): v for v in range(self.level_count())}
+        most = max(self.cells.values())
+        variant = runs.variant if "variant" in runs else pd.Series("", index=runs.index)
+        used = [(r.is_baseline == 1 and r.seed < most) or (
+            r.length == self.length and str(v) in keys
+            and r.seed < self.cells.get((int(r.start_epoch), keys[str(v)]), 0))
+            for r, v in zip(runs.itertuples(), variant, strict=True)]
+        return runs[pd.Series(used, index=runs.index, dtype=bool)
+                    & (runs.end_epoch == self.epochs)]
+
+    def table(self, runs: pd.DataFrame, confidence: float, tolerance: float | None,
+              mcnemar: pd.DataFrame | None = None, *,
+              num_classes: int | None = None) -> pd.DataFrame:
+        """The measured windows with group-sequential verdicts (Holm over the whole grid)."""
+        mine = self.runs_used(runs)
+        options = TableOptions(confidence=confidence, num_classes=num_classes)
+        if self.variants:
+            table = variant_table(mine, self.epochs, options, mcnemar, self.variant_columns())
+        else:
+            table = sensitivity_table(mine, self.epochs, options, mcnemar)
+        if tolerance is None or table.empty:
+            return table
+        rule = StagedRule(stages=self.stages, tolerance=float(tolerance), confidence=confidence,
+                          futility=float(self.block["futility"]),
+                          family_size=self.holm_family_size(), sd_floor=resolution(mine))
+        table = add_staged_verdicts(table, seed_damages(mine), rule)
+        # Futility is sticky: a window stopped for it gets no more seeds, even if a later
+        # round's recycled Holm level would raise its conditional power again.
+        sticky = [self.cell_of(r) in self.futile and r.stopped == OPEN
+                  for r in table.itertuples()]
+        table.loc[pd.Series(sticky, index=table.index, dtype=bool), "stopped"] = FUTILE
+        return table
+
+    def holm_family_size(self) -> int | None:
+        return len(self.grid())
+
+    def implied(self, table: pd.DataFrame) -> dict[tuple[int, int], str]:
+        """Verdict of every (grid start, level): measured, or implied by monotonicity."""
+        settled = {c: k for c, k in self.known(table).items() if k.settled}
+        return implied_labels(settled, self.level_count(), self.grid())
+
+    def plan(self, runs: pd.DataFrame, table: pd.DataFrame, *, length: int | None = None,
+             production_epochs: int | None = None, sweep: str = "") -> Any:
+        """The window plan of each level, its critical and safe starts over the whole grid
+        (implied starts included and named)."""
+        if self.variants:
+            settings = PlanSettings(schedule_epochs=self.epochs,
+                                    production_epochs=production_epochs,
+                                    holm_family=self.holm_family_size())
+            answer = variant_plan(runs, table, length, settings, sweep=sweep,
+                                  axis=self.layout.variant_axis,
+                                  labels={v.key: v.label for v in self.variants})
+            for level in range(self.level_count()):
+                if self.key_of(level) in answer.answers:
+                    self._fill(answer.answers[self.key_of(level)], table, level)
+            return answer
+        answer = super().plan(runs, table, length=length, production_epochs=production_epochs,
+                              sweep=sweep)
+        return self._fill(answer, table, 0)
+
+    def _fill(self, answer: Any, table: pd.DataFrame, level: int) -> Any:
+        """Critical, safe and undetermined starts and safe-from over the whole grid (implied
+        starts included), and the facts of a group-sequential answer."""
+        labels, grid = self.implied(table), self.grid()
+        column = {s: labels[(s, level)] for s in grid}
+        answer.critical = [s for s in grid if column[s] == CRITICAL]
+        answer.safe = [s for s in grid if column[s] == SAFE]
+        answer.undetermined = [s for s in grid if column[s] not in (CRITICAL, SAFE)]
+        answer.safe_from = None
+        for start in grid[::-1]:
+            if column[start] != SAFE:
+                break
+            answer.safe_from = start
+        measured = {s.start for s in answer.starts}
+        implied = tuple(s for s in answer.critical + answer.safe if s not in measured)
+        futile = tuple(sorted(self.cell_of(r)[0] for r in table.itertuples()
+                              if r.stopped == FUTILE and self.cell_of(r)[1] == level))
+        facts = [f for f in answer.facts if f.code != planner.METHOD]
+        extra = [Fact(planner.IMPLIED, starts=tuple(sorted(implied)))] if implied else []
+        extra += [Fact(planner.FUTILE, starts=futile)] if futile else []
+        extra.append(Fact(planner.SEQUENTIAL, count=self.holm_family_size(),
+                          seeds=self.stages.cap))
+        answer.facts = facts[:-1] + extra + facts[-1:]  # the proxy caveat stays last
+        # The bound over all windows is a fixed-sample one; after data-dependent stopping it
+        # would claim more than it holds, so a staged answer does not state it.
+        answer.established = None
+        return answer
+
+    # --- state --------------------------------------------------------------------------
+    def state(self) -> Any:
+        state = dict(super().state() or {})
+        if self.cells:
+            state["cells"] = {f"{s}|{v}": int(n) for (s, v), n in sorted(self.cells.items())}
+        if self.futile:
+            state["futile"] = [f"{s}|{v}" for s, v in sorted(self.futile)]
+        return state or None
+
+    def notes(self) -> list[str]:
+        lines = list(self.history)
+        table = getattr(self, "last_table", None)
+        if table is not None and len(table):
+            decided = table[table.stopped == DECIDED]
+            lines.append(f"{len(decided)} of {len(table)} windows decided; "
+                         f"{sum(self.cells.values())} window-seeds of a full grid's "
+                         f"{len(self.grid()) * self.level_count() * self.stages.cap}")
+        return lines
+
+    def summary(self) -> str:
+        return (f"sequential: {self.length}-epoch deficit, starts {self.first} to {self.last} "
+                f"every {self.resolution} (first pass every {self.step}), seeds in stages "
+                f"{list(self.stages.seeds)} ({self.stages.kind} spending)"
+                + variants_summary(self.variants))
+
+
+def _cells_from_state(state: Any) -> dict[tuple[int, int], int]:
+    raw = state.get("cells") if isinstance(state, dict) else None
+    if not raw:
+        return {}
+    return {(int(k.split("|")[0]), int(k.split("|")[1])): int(n) for k, n in raw.items()}
+
+
+def _futile_from_state(state: Any) -> set[tuple[int, int]]:
+    raw = state.get("futile") if isinstance(state, dict) else None
+    return {(int(k.split("|")[0]), int(k.split("|")[1])) for k in raw or []}
+
+
+DESIGN = SequentialDesign

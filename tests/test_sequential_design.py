@@ -1,0 +1,124 @@
+"""The sequential design: staged verdicts against fixed-sample Holm, and real tiny sweeps."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from periodscan.analysis import planner
+from periodscan.analysis.sequential import Stages
+from periodscan.analysis.staged_verdicts import (
+    AT_CAP,
+    DECIDED,
+    StagedRule,
+    add_staged_verdicts,
+)
+from periodscan.analysis.verdicts import add_verdicts
+from periodscan.api import load_sweep
+from periodscan.errors import ConfigError
+from periodscan.jobs.sweep import run_sweep
+
+SEQUENTIAL = {"kind": "sequential", "length": 3, "resolution": 1, "initial_step": 2,
+              "first_start": 0, "last_start": 4, "stages": [2, 3, 4],
+              "spending": "obrien_fleming", "futility": 0.0, "max_rounds": 30,
+              "severity": None, "deficits": None}
+
+
+def _windows(damages: dict[int, np.ndarray]) -> tuple[pd.DataFrame, dict]:
+    table = pd.DataFrame({"start": list(damages), "length": 3,
+                          "seeds": [len(v) for v in damages.values()],
+                          "damage": [float(np.mean(v)) for v in damages.values()]})
+    series = {("", s): pd.Series(v, index=range(len(v))) for s, v in damages.items()}
+    return table, series
+
+
+@pytest.mark.parametrize("family_size", [None, 9])
+def test_one_stage_gives_the_fixed_sample_holm_verdicts(family_size):
+    # With a single look the spending function spends all of alpha there: the group-sequential
+    # Holm procedure must reduce to ordinary Holm on the t tests (statsmodels-checked in
+    # test_stats), verdict for verdict.
+    rng = np.random.default_rng(3)
+    damages = {s: rng.normal(mu, 0.6, 10) for s, mu in
+               zip(range(0, 40, 5), [3.0, 1.4, 0.9, 0.6, 0.1, 0.0, -0.2, 0.3], strict=True)}
+    table, series = _windows(damages)
+    rule = StagedRule(stages=Stages((10,)), tolerance=0.5, family_size=family_size)
+    staged = add_staged_verdicts(table, series, rule)
+    fixed = add_verdicts(table, {(s, 3): v for s, v in damages.items()}, 0.5,
+                         family_size=family_size)
+    assert list(staged.verdict) == list(fixed.verdict)
+    assert set(staged.verdict) >= {"critical", "safe"}  # the case decides both ways
+    assert (staged.stopped[staged.verdict != "undetermined"] == DECIDED).all()
+    assert (staged.stopped[staged.verdict == "undetermined"] == AT_CAP).all()
+
+
+def test_a_clear_window_is_decided_at_an_early_stage_and_the_verdict_stays():
+    rng = np.random.default_rng(0)
+    clear = rng.normal(6.0, 0.3, 16)
+    table, series = _windows({0: clear[:8]})
+    rule = StagedRule(stages=Stages((3, 5, 8, 12, 16)), tolerance=0.5)
+    first = add_staged_verdicts(table, series, rule)
+    assert first.verdict.iloc[0] == "critical" and first.stopped.iloc[0] == DECIDED
+    # more seeds (as if the design had not stopped) cannot undo a decision taken at a look
+    table, series = _windows({0: clear})
+    assert add_staged_verdicts(table, series, rule).verdict.iloc[0] == "critical"
+
+
+def _run(make_config, **changes):
+    cfg = make_config(design=dict(SEQUENTIAL), seeds=4, **changes)
+    outcome = run_sweep(cfg, quiet=True)
+    return cfg, outcome
+
+
+def test_tiny_sweep_runs_rounds_and_rereads_the_same_table(make_config):
+    cfg, outcome = _run(make_config)
+    table = outcome.table
+    assert set(table.start) <= {0, 1, 2, 3, 4} and {0, 2, 4} <= set(table.start)
+    assert set(table.seeds) <= {2, 3, 4}
+    assert "stopped" in table and table.stopped.isin(["decided", "futile", "at cap"]).all()
+    again = run_sweep(cfg, quiet=True)  # nothing left to train: same rounds, same table
+    pd.testing.assert_frame_equal(again.table, table)
+    with load_sweep(outcome.folder) as view:
+        plan = view.plan(3)
+        reread = view.table(with_mcnemar=False)
+    assert list(reread.verdict) == list(table.verdict)
+    codes = [f.code for f in plan.facts]
+    assert planner.SEQUENTIAL in codes and planner.METHOD not in codes
+    assert plan.established is None
+    grid = list(range(0, 5))
+    assert sorted(plan.critical + plan.safe + plan.undetermined) == grid
+
+
+def test_severity_levels_are_bisected_per_start(make_config):
+    design = dict(SEQUENTIAL, severity={"param": "sigma", "levels": [0.5, 1.0, 2.0, 4.0]},
+                  first_start=0, last_start=4, initial_step=4, resolution=4)
+    cfg = make_config(design=design, seeds=3)
+    cfg["design"]["stages"] = [2, 3]
+    outcome = run_sweep(cfg, quiet=True)
+    table = outcome.table
+    assert set(table.start) == {0, 4}
+    for _, rows in table.groupby("start"):
+        # every start at its mildest and most severe level (the middle ones only where the
+        # search saw them differ: tests/test_staged_search.py), one run per seed and level
+        assert {0.5, 4.0} <= set(rows.severity)
+        assert rows.severity.is_unique
+    with load_sweep(outcome.folder) as view:
+        plan = view.plan(3)
+    assert {"sigma=0.5", "sigma=4"} <= set(plan.answers)
+    for answer in plan.answers.values():
+        assert planner.SEQUENTIAL in [f.code for f in answer.facts]
+        assert sorted(answer.critical + answer.safe + answer.undetermined) == [0, 4]
+
+
+@pytest.mark.parametrize(("change", "field"), [
+    ({"stages": [5, 3]}, "design.stages"),
+    ({"stages": [1, 3]}, "design.stages"),
+    ({"spending": "linear"}, "design.spending"),
+    ({"futility": 1.5}, "design.futility"),
+    ({"deficits": ["blur", "noise"]}, "design.deficits"),
+    ({"initial_step": 3, "resolution": 2}, "design.initial_step"),
+])
+def test_bad_fields_name_the_field(make_config, change, field):
+    cfg = make_config(design=dict(SEQUENTIAL, **change))
+    with pytest.raises(ConfigError, match=field.replace(".", r"\.")):
+        run_sweep(cfg, quiet=True)
