@@ -122,3 +122,11 @@ def test_bad_fields_name_the_field(make_config, change, field):
     cfg = make_config(design=dict(SEQUENTIAL, **change))
     with pytest.raises(ConfigError, match=field.replace(".", r"\.")):
         run_sweep(cfg, quiet=True)
+
+
+def test_a_confidence_whose_levels_shrink_with_alpha_is_refused(make_config):
+    # O'Brien-Fleming-type union levels stop growing with alpha near 0.35 for these stages
+    # (tests/test_sequential.py); Holm's steps need them to grow, so 0.6 is refused up front.
+    cfg = make_config(design=dict(SEQUENTIAL, stages=[3, 5, 8, 12, 16]), confidence=0.6)
+    with pytest.raises(ConfigError, match="confidence"):
+        run_sweep(cfg, quiet=True)

@@ -25,6 +25,7 @@ from collections.abc import Iterator
 from dataclasses import replace
 from typing import Any, ClassVar
 
+import numpy as np
 import pandas as pd
 
 from periodscan.analysis import planner
@@ -103,6 +104,17 @@ class SequentialDesign(Design):
         if list(b["stages"]) != sorted(b["stages"]):
             raise bad_value("design.stages", str(STAGES), b["stages"])
         self.stages = Stages(tuple(int(n) for n in b["stages"]), b["spending"])
+        self.check_levels(self.confidence)
+
+    def check_levels(self, confidence: float) -> None:
+        """Holm's steps need each look's level to grow with alpha; O'Brien-Fleming-type
+        spending stops doing so at large alpha (about 0.35 for stages 3, 5, 8, 12, 16)."""
+        alpha = 1.0 - confidence
+        levels = [self.stages.levels(a) for a in np.linspace(alpha / 40, alpha, 40)]
+        if any(np.any(b < a) for a, b in zip(levels[:-1], levels[1:], strict=True)):
+            raise bad_value("confidence", f"a higher confidence with design.spending="
+                            f"{self.stages.kind} and these stages (its looks' levels stop "
+                            "growing with alpha), e.g. 0.9 or 0.95", confidence)
 
     # --- the grid -----------------------------------------------------------------------
     def grid(self) -> list[int]:
@@ -219,6 +231,7 @@ class SequentialDesign(Design):
             table = sensitivity_table(mine, self.epochs, options, mcnemar)
         if tolerance is None or table.empty:
             return table
+        self.check_levels(confidence)
         rule = StagedRule(stages=self.stages, tolerance=float(tolerance), confidence=confidence,
                           futility=float(self.block["futility"]),
                           family_size=self.holm_family_size(), sd_floor=resolution(mine))
