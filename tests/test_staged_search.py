@@ -31,9 +31,16 @@ def test_search_ends_when_neighbours_differ_only_at_the_resolution():
     assert next_cells(known, levels=1, resolution=2) == []
 
 
-def test_undetermined_differs_from_safe_and_is_searched_too():
-    known = {(0, 0): S, (20, 0): U}
-    assert next_cells(known, levels=1, resolution=5) == [(10, 0)]
+def test_only_gaps_that_hold_an_edge_of_the_answer_are_searched():
+    # no critical start and no trailing safe stretch: the answer has no edge to locate
+    assert next_cells({(0, 0): S, (20, 0): U}, levels=1, resolution=5) == []
+    # edges: after the latest critical start (10-20) and before the trailing safe stretch
+    # (30-40); the safe/undetermined flip between 20 and 30 moves neither and is left alone
+    known = {(0, 0): C, (10, 0): C, (20, 0): S, (30, 0): U, (40, 0): S}
+    assert next_cells(known, levels=1, resolution=2) == [(14, 0), (34, 0)]
+    # a critical stretch that begins late: the gap before its first start is searched too
+    known = {(0, 0): S, (10, 0): C, (20, 0): S}
+    assert next_cells(known, levels=1, resolution=2) == [(4, 0), (14, 0)]
 
 
 def test_levels_bisect_between_differing_verdicts_at_one_start():
@@ -68,3 +75,12 @@ def test_implied_labels_fill_agreeing_gaps_and_leave_the_rest_unknown():
     labels = implied_labels(known, 1, list(range(0, 31, 2)))
     assert [labels[(s, 0)] for s in range(0, 31, 2)] == (
         [CRITICAL] * 6 + [SAFE] * 5 + [UNKNOWN] * 4 + [UNDETERMINED])
+
+
+def test_implied_labels_agree_level_by_level():
+    # 24 measured at level 0 only; 36 at all three: level 0 agrees (safe) and is implied between
+    # them, levels 1 and 2 do not (unknown at 24), so they stay unknown
+    known = {(24, 0): S, (36, 0): S, (36, 1): U, (36, 2): U}
+    labels = implied_labels(known, 3, [24, 28, 32, 36])
+    assert [labels[(s, 0)] for s in (28, 32)] == [SAFE, SAFE]
+    assert {labels[(s, v)] for s in (28, 32) for v in (1, 2)} == {UNKNOWN}

@@ -11,9 +11,11 @@ Two bisections, both assuming the damage is monotone between the cells they meas
   measured at its mildest and most severe level. Between two measured levels whose labels
   differ, the level halfway is measured, until the threshold (the least severe critical level,
   the most severe safe level) is found between neighbouring levels.
-* **Starts.** Starts are first measured every ``initial_step`` epochs. Between two measured starts
-  whose answers differ (the label of some level, measured or implied by monotonicity), the start
-  halfway on the grid is measured, until neighbouring measured starts are ``resolution`` apart.
+* **Starts.** Starts are first measured every ``initial_step`` epochs. For each level, the gaps
+  that hold an edge of the answer are bisected (:func:`edge_gaps`): the gap before the first and
+  after the latest critical start, and the gap before the trailing stretch of safe starts; the
+  start halfway on the grid is measured, until the edge's neighbours are ``resolution`` apart.
+  Gaps between two starts inside a stretch are not searched: their noise does not move an edge.
 
 Starts between two measured starts with the same answer are not measured: their answer is
 implied (:func:`implied_labels`). A change that begins and ends between two measured starts
@@ -85,6 +87,26 @@ def first_levels(levels: int) -> list[int]:
     return sorted({0, levels - 1})
 
 
+def edge_gaps(labels: dict[int, str]) -> list[tuple[int, int]]:
+    """Gaps between neighbouring measured starts (of one level) that hold an edge of the
+    answer: before the first and after the latest critical start, and before the trailing
+    stretch of safe starts. Gaps elsewhere only hold noise the answer does not need."""
+    starts = sorted(labels)
+    pairs = list(zip(starts, starts[1:], strict=False))
+    critical = [s for s in starts if labels[s] == CRITICAL]
+    gaps = []
+    if critical:
+        gaps += [(a, b) for a, b in pairs if b == critical[0] or a == critical[-1]]
+    tail = []
+    for start in reversed(starts):
+        if labels[start] != SAFE:
+            break
+        tail.append(start)
+    if tail and len(tail) < len(starts):
+        gaps += [(a, b) for a, b in pairs if b == tail[-1]]
+    return gaps
+
+
 def next_cells(known: Mapping[tuple[int, int], Known], levels: int,
                resolution: int) -> list[tuple[int, int]]:
     """New (start, level) cells to measure, in start then level order; [] when none."""
@@ -92,19 +114,21 @@ def next_cells(known: Mapping[tuple[int, int], Known], levels: int,
     for (start, level), cell in known.items():
         by_start.setdefault(start, {})[level] = cell
     wanted = [(s, v) for s, cells in sorted(by_start.items()) for v in new_levels(cells)]
-    starts = sorted(by_start)
-    answers = {s: level_labels(by_start[s], levels) for s in starts}
-    for low, high in zip(starts, starts[1:], strict=False):
-        point = middle(low, high, resolution)
-        if point is not None and answers[low] != answers[high]:
-            wanted += [(point, v) for v in first_levels(levels)]
-    return [cell for cell in dict.fromkeys(wanted) if cell not in known]
+    answers = {s: level_labels(cells, levels) for s, cells in by_start.items()}
+    for level in range(levels):
+        for low, high in edge_gaps({s: a[level] for s, a in answers.items()}):
+            point = middle(low, high, resolution)
+            if point is not None:
+                wanted += [(point, v) for v in first_levels(levels)]
+    return [cell for cell in dict.fromkeys(sorted(wanted)) if cell not in known]
 
 
 def implied_labels(known: Mapping[tuple[int, int], Known], levels: int,
                    grid: list[int]) -> dict[tuple[int, int], str]:
-    """Label of every grid cell: measured, implied between levels, or implied between starts
-    whose answers agree (unknown where they do not)."""
+    """Label of every grid cell: measured, implied between levels, or implied level by level
+    between the nearest measured starts on either side when their labels at that level agree
+    (unknown where they do not). Level by level, because a neighbour measured at other levels
+    says nothing against an agreement at this one."""
     by_start: dict[int, dict[int, Known]] = {}
     for (start, level), cell in known.items():
         by_start.setdefault(start, {})[level] = cell
@@ -113,15 +137,17 @@ def implied_labels(known: Mapping[tuple[int, int], Known], levels: int,
     out = {}
     for start in grid:
         if start in answers:
-            labels = answers[start]
-        else:
-            before = [s for s in starts if s < start]
-            after = [s for s in starts if s > start]
-            same = before and after and answers[before[-1]] == answers[after[0]]
-            labels = answers[before[-1]] if same else [UNKNOWN] * levels
-        out.update({(start, v): label for v, label in enumerate(labels)})
+            out.update({(start, v): label for v, label in enumerate(answers[start])})
+            continue
+        before = [s for s in starts if s < start]
+        after = [s for s in starts if s > start]
+        for level in range(levels):
+            low = answers[before[-1]][level] if before else UNKNOWN
+            high = answers[after[0]][level] if after else UNKNOWN
+            out[(start, level)] = low if low == high else UNKNOWN
     return out
 
 
 __all__ = ["CRITICAL", "SAFE", "UNDETERMINED", "UNKNOWN", "Known", "first_levels",
-           "implied_labels", "level_labels", "middle", "new_levels", "next_cells"]
+           "edge_gaps", "implied_labels", "level_labels", "middle", "new_levels",
+           "next_cells"]
