@@ -86,7 +86,7 @@ def test_tiny_sweep_runs_rounds_and_rereads_the_same_table(make_config):
     assert planner.SEQUENTIAL in codes and planner.METHOD not in codes
     assert plan.established is None
     grid = list(range(0, 5))
-    assert sorted(plan.critical + plan.safe + plan.undetermined) == grid
+    assert sorted(plan.critical_starts + plan.safe_starts + plan.undetermined_starts) == grid
 
 
 def test_severity_levels_are_bisected_per_start(make_config):
@@ -107,7 +107,8 @@ def test_severity_levels_are_bisected_per_start(make_config):
     assert {"sigma=0.5", "sigma=4"} <= set(plan.answers)
     for answer in plan.answers.values():
         assert planner.SEQUENTIAL in [f.code for f in answer.facts]
-        assert sorted(answer.critical + answer.safe + answer.undetermined) == [0, 4]
+        assert sorted(answer.critical_starts + answer.safe_starts
+                      + answer.undetermined_starts) == [0, 4]
 
 
 @pytest.mark.parametrize(("change", "field"), [

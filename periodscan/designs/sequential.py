@@ -101,6 +101,8 @@ class SequentialDesign(Design):
             raise bad_value("design.last_start", f"an int in the range [{self.first}, "
                             f"{self.epochs - self.length}] (design.first_start to the last start "
                             f"whose window ends by epoch {self.epochs})", last)
+        # on the grid of candidate starts: first_start + a multiple of the resolution
+        self.last -= (self.last - self.first) % self.resolution
         if list(b["stages"]) != sorted(b["stages"]):
             raise bad_value("design.stages", str(STAGES), b["stages"])
         self.stages = Stages(tuple(int(n) for n in b["stages"]), b["spending"])
@@ -182,14 +184,14 @@ class SequentialDesign(Design):
         return {self.cell_of(row): row.stopped for row in table.itertuples()}
 
     def known(self, table: pd.DataFrame) -> dict[tuple[int, int], Known]:
-        """What the search knows about each measured cell, from the table."""
+        """What the search knows about each measured cell: its verdict once decided, else its
+        mean damage against the tolerance (a window left undetermined at the cap or for
+        futility steers by its estimate too, so the search does not chase its noise)."""
         out = {}
         for row in table.itertuples():
-            cell = self.cell_of(row)
-            settled = row.stopped != OPEN
-            label = row.verdict if settled else (
-                "critical" if row.damage > self.tolerance else "safe")
-            out[cell] = Known(label=label, settled=settled)
+            label = row.verdict if row.stopped == DECIDED else (
+                CRITICAL if row.damage > self.tolerance else SAFE)
+            out[self.cell_of(row)] = Known(label=label, settled=row.stopped != OPEN)
         return out
 
     def _progress(self, table: pd.DataFrame) -> str:
@@ -248,8 +250,9 @@ class SequentialDesign(Design):
 
     def implied(self, table: pd.DataFrame) -> dict[tuple[int, int], str]:
         """Verdict of every (grid start, level): measured, or implied by monotonicity."""
-        settled = {c: k for c, k in self.known(table).items() if k.settled}
-        return implied_labels(settled, self.level_count(), self.grid())
+        verdicts = {self.cell_of(r): Known(label=r.verdict, settled=r.stopped != OPEN)
+                    for r in table.itertuples()}
+        return implied_labels(verdicts, self.level_count(), self.grid())
 
     def plan(self, runs: pd.DataFrame, table: pd.DataFrame, *, length: int | None = None,
              production_epochs: int | None = None, sweep: str = "") -> Any:
@@ -275,16 +278,17 @@ class SequentialDesign(Design):
         starts included), and the facts of a group-sequential answer."""
         labels, grid = self.implied(table), self.grid()
         column = {s: labels[(s, level)] for s in grid}
-        answer.critical = [s for s in grid if column[s] == CRITICAL]
-        answer.safe = [s for s in grid if column[s] == SAFE]
-        answer.undetermined = [s for s in grid if column[s] not in (CRITICAL, SAFE)]
+        answer.critical_starts = [s for s in grid if column[s] == CRITICAL]
+        answer.safe_starts = [s for s in grid if column[s] == SAFE]
+        answer.undetermined_starts = [s for s in grid if column[s] not in (CRITICAL, SAFE)]
         answer.safe_from = None
         for start in grid[::-1]:
             if column[start] != SAFE:
                 break
             answer.safe_from = start
         measured = {s.start for s in answer.starts}
-        implied = tuple(s for s in answer.critical + answer.safe if s not in measured)
+        implied = tuple(s for s in answer.critical_starts + answer.safe_starts
+                        if s not in measured)
         futile = tuple(sorted(self.cell_of(r)[0] for r in table.itertuples()
                               if r.stopped == FUTILE and self.cell_of(r)[1] == level))
         facts = [f for f in answer.facts if f.code != planner.METHOD]
