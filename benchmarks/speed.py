@@ -264,8 +264,8 @@ def main() -> None:
                         help="skip the 1-worker (a)/(c) measurement with both started together")
     parser.add_argument("--loop-only", action="store_true",
                         help="only the per-epoch loop ratio (periodscan's epoch vs a minimal "
-                             "hand-written one, --repeats pairs, at least 101), a minute instead of "
-                             "an hour")
+                             "hand-written one, --repeats pairs, at least 101), a minute "
+                             "instead of an hour")
     args = parser.parse_args()
     if args.loop_only:
         args.sweeps = []
