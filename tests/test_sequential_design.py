@@ -18,6 +18,7 @@ from periodscan.analysis.verdicts import add_verdicts
 from periodscan.api import load_sweep
 from periodscan.errors import ConfigError
 from periodscan.jobs.sweep import run_sweep
+from periodscan.views.plan import fact_text
 
 SEQUENTIAL = {"kind": "sequential", "length": 3, "resolution": 1, "initial_step": 2,
               "first_start": 0, "last_start": 4, "stages": [2, 3, 4],
@@ -131,3 +132,17 @@ def test_a_confidence_whose_levels_shrink_with_alpha_is_refused(make_config):
     cfg = make_config(design=dict(SEQUENTIAL, stages=[3, 5, 8, 12, 16]), confidence=0.6)
     with pytest.raises(ConfigError, match="confidence"):
         run_sweep(cfg, quiet=True)
+
+
+def test_open_starts_are_sent_to_fresh_seeds_not_to_more_of_the_same(make_config):
+    # a tolerance no 2-seed window can clear: every start stays open
+    cfg, outcome = _run(make_config, tolerance=0.0)
+    with load_sweep(outcome.folder) as view:
+        plan = view.plan(3)
+    codes = [f.code for f in plan.facts]
+    assert planner.UNDETERMINED not in codes
+    fresh = next(f for f in plan.facts if f.code == planner.FRESH_SEEDS)
+    assert list(fresh.starts) == plan.undetermined_starts
+    assert fresh.count == 4 and fresh.seeds == 4  # seeds 0-3 tested: 4, 5, 6, 7 are fresh
+    text = fact_text(plan, fresh)
+    assert "'seeds=[4,5,6,7]'" in text and "design=window" in text

@@ -39,6 +39,8 @@ METHOD = "method"  # count: Holm family size when padded beyond the measured sta
 SEQUENTIAL = "sequential"  # count: Holm family size; seeds: the cap (replaces METHOD)
 FUTILE = "futile"  # starts: stopped early, more seeds unlikely to decide them
 IMPLIED = "implied"  # starts: not trained, verdict implied by the measured starts around them
+FRESH_SEEDS = "fresh_seeds"  # starts: left open by a staged design; count: first unused seed;
+#                              seeds: how many fresh seeds to take
 PROXY = "proxy"  # the proxy-model caveat
 
 

@@ -291,9 +291,14 @@ class SequentialDesign(Design):
                         if s not in measured)
         futile = tuple(sorted(self.cell_of(r)[0] for r in table.itertuples()
                               if r.stopped == FUTILE and self.cell_of(r)[1] == level))
-        facts = [f for f in answer.facts if f.code != planner.METHOD]
+        # The fixed-sample "more seeds" estimate counts measured starts only and assumes the
+        # same seeds are tested again; a staged answer points to fresh seeds instead.
+        facts = [f for f in answer.facts if f.code not in (planner.METHOD, planner.UNDETERMINED)]
         extra = [Fact(planner.IMPLIED, starts=tuple(sorted(implied)))] if implied else []
         extra += [Fact(planner.FUTILE, starts=futile)] if futile else []
+        if answer.undetermined_starts:
+            extra.append(Fact(planner.FRESH_SEEDS, starts=tuple(answer.undetermined_starts),
+                              count=max(self.seeds) + 1, seeds=self.stages.cap))
         extra.append(Fact(planner.SEQUENTIAL, count=self.holm_family_size(),
                           seeds=self.stages.cap))
         answer.facts = facts[:-1] + extra + facts[-1:]  # the proxy caveat stays last

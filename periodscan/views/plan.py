@@ -176,9 +176,20 @@ def fact_text(a: PlanAnswer, fact: Fact) -> str:
             f"Start(s) {epoch_list(fact.starts)} were not trained: their verdict is implied by "
             "the measured starts on either side, which agree (damage assumed monotone between "
             "them)."),
+        facts.FRESH_SEEDS: lambda: _fresh_seeds_text(a, fact),
         facts.PROXY: lambda: PROXY_CAVEAT,
     }
     return phrase[fact.code]()
+
+
+def _fresh_seeds_text(a: PlanAnswer, fact: Fact) -> str:
+    first, n = int(fact.count or 0), int(fact.seeds or 0)
+    seeds = ",".join(str(first + i) for i in range(n))
+    return (f"To settle start(s) {epoch_list(fact.starts)}, measure them on fresh seeds: the "
+            "seeds this sweep has already tested would not give an independent test. For "
+            f"example, with this sweep's other settings and a new name: periodscan sweep "
+            f"design=window 'design.starts=[{','.join(map(str, fact.starts))}]' "
+            f"'design.lengths=[{a.length_used}]' 'seeds=[{seeds}]' name=...")
 
 
 def _production_text(a: PlanAnswer) -> str:
