@@ -184,21 +184,17 @@ def measure(name: str, config: dict, root: Path, way: str, stride: int) -> dict:
     if way == "grid":
         g = run_sweep(grid_o, quiet=True)
         data = dict(epochs=g.epochs_shared, seconds=g.seconds, folder=str(g.folder))
-    elif way == "seq":
-        folder = root / "seq" / name
+    elif way in ("seq", "every"):
+        every = way == "every"
+        folder = root / way / name
         if folder.exists():
             shutil.rmtree(folder)
-        s = run_sweep(sequential_overrides(root / "seq", name, config), quiet=True)
-        data = dict(epochs=s.epochs_shared, seconds=s.seconds, folder=str(s.folder),
-                    notes=s.notes)
-    elif way == "every":
-        folder = root / "every" / name
-        if folder.exists():
-            shutil.rmtree(folder)
-        shutil.copytree(_record(root, name, "grid")["folder"], folder,
-                        ignore=shutil.ignore_patterns("checkpoints"))
-        s = run_sweep(sequential_overrides(root / "every", name, config, every=True), quiet=True)
-        data = dict(epochs=s.epochs_shared, seconds=None, folder=str(s.folder), notes=s.notes)
+        if every:  # a replay: start from the grid's runs, train nothing new
+            shutil.copytree(_record(root, name, "grid")["folder"], folder,
+                            ignore=shutil.ignore_patterns("checkpoints"))
+        s = run_sweep(sequential_overrides(root / way, name, config, every=every), quiet=True)
+        data = dict(epochs=s.epochs_shared, seconds=None if every else s.seconds,
+                    folder=str(s.folder), notes=s.notes)
     else:
         runs = len(prepare(grid_o).design.preview())
         accs, seconds = naive_grid(grid_o, stride)

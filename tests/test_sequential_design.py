@@ -135,7 +135,7 @@ def test_a_confidence_whose_levels_shrink_with_alpha_is_refused(make_config):
 
 
 def test_open_starts_are_sent_to_fresh_seeds_not_to_more_of_the_same(make_config):
-    # a tolerance no 2-seed window can clear: every start stays open
+    # tolerance 0 on 2 to 4 seeds: starts stay open (the test needs at least one)
     cfg, outcome = _run(make_config, tolerance=0.0)
     with load_sweep(outcome.folder) as view:
         plan = view.plan(3)

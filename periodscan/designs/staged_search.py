@@ -26,6 +26,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass
+from itertools import takewhile
 
 from periodscan.analysis.verdicts import CRITICAL, SAFE, UNDETERMINED
 
@@ -97,11 +98,7 @@ def edge_gaps(labels: dict[int, str]) -> list[tuple[int, int]]:
     gaps = []
     if critical:
         gaps += [(a, b) for a, b in pairs if b == critical[0] or a == critical[-1]]
-    tail = []
-    for start in reversed(starts):
-        if labels[start] != SAFE:
-            break
-        tail.append(start)
+    tail = list(takewhile(lambda s: labels[s] == SAFE, reversed(starts)))
     if tail and len(tail) < len(starts):
         gaps += [(a, b) for a, b in pairs if b == tail[-1]]
     return gaps
