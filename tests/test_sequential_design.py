@@ -16,6 +16,7 @@ from periodscan.analysis.staged_verdicts import (
 )
 from periodscan.analysis.verdicts import add_verdicts
 from periodscan.api import load_sweep
+from periodscan.designs.sequential import seed_order
 from periodscan.errors import ConfigError
 from periodscan.jobs.sweep import run_sweep
 from periodscan.views.plan import fact_text
@@ -146,3 +147,29 @@ def test_open_starts_are_sent_to_fresh_seeds_not_to_more_of_the_same(make_config
     assert fresh.count == 4 and fresh.seeds == 4  # seeds 0-3 tested: 4, 5, 6, 7 are fresh
     text = fact_text(plan, fresh)
     assert "'seeds=[4,5,6,7]'" in text and "design=window" in text
+
+
+def test_seed_order_takes_the_named_seeds_then_the_next_numbers():
+    assert seed_order(list(range(10)), 16) == list(range(16))  # seeds=10, cap 16: as before
+    assert seed_order(list(range(16, 32)), 16) == list(range(16, 32))
+    assert seed_order([0, 7, 11], 5) == [0, 7, 11, 12, 13]
+    assert seed_order([9, 3, 5, 1], 3) == [9, 3, 5]  # in the order named
+
+
+def test_a_named_seed_list_is_the_one_trained_and_tested_in_its_order(make_config):
+    # A second look on seeds the first sweep did not use: seeds=[7, 5, 6, 4] must train those
+    # seeds only, and each stage's test must rest on the first n of them in that order.
+    order = [7, 5, 6, 4]
+    cfg = make_config(design=dict(SEQUENTIAL), seeds=order, tolerance=0.0)
+    outcome = run_sweep(cfg, quiet=True)
+    with load_sweep(outcome.folder) as view:
+        runs, plan = view.runs, view.plan(3)
+    assert set(runs.seed) <= set(order) and 7 in set(runs.seed)
+    base = runs[runs.is_baseline == 1].set_index("seed").test_acc
+    for row in outcome.table.itertuples():
+        mine = runs[(runs.is_baseline == 0) & (runs.start_epoch == row.start)]
+        assert sorted(mine.seed) == sorted(order[:row.seeds])
+        damage = [100 * (base[s] - acc) for s, acc in zip(mine.seed, mine.test_acc, strict=True)]
+        assert row.damage == pytest.approx(np.mean(damage))
+    fresh = next(f for f in plan.facts if f.code == planner.FRESH_SEEDS)
+    assert fresh.count == 8  # the first seed after the ones named

@@ -1,13 +1,14 @@
 """Verdicts for windows whose seeds were added in stages: group-sequential t tests with Holm.
 
 Each window (one start, one deficit variant) is tested at every stage it has reached: the paired
-t test of "mean damage = tolerance" on its first ``stages.seeds[k]`` seeds (seeds 0, 1, ...),
-against the nominal level of look k of a group-sequential design with an alpha-spending
-function (:mod:`periodscan.analysis.sequential`). Holm's procedure runs over the family (the
-candidate starts of one variant, unmeasured ones never rejected) in its group-sequential form:
-a window decided at any look passes its level on to the others, whose boundaries are then
-recomputed for the larger level. A window is decided at the first look that crosses, in the
-direction of its mean there; the design stops adding seeds to it, so the verdict is final.
+t test of "mean damage = tolerance" on its first ``stages.seeds[k]`` seeds (in the order the
+design adds them), against the nominal level of look k of a group-sequential design with an
+alpha-spending function (:mod:`periodscan.analysis.sequential`). Holm's procedure runs over the
+family (the candidate starts of one variant, unmeasured ones never rejected) in its
+group-sequential form: a window decided at any look passes its level on to the others, whose
+boundaries are then recomputed for the larger level. A window is decided at the first look
+that crosses, in the direction of its mean there; the design stops adding seeds to it, so the
+verdict is final.
 
 An undecided window stops (undetermined) at the cap, or earlier for **futility**: when, taking
 its observed mean and spread as the truth, the chance that the test at the cap would cross is
@@ -49,11 +50,17 @@ class StagedRule:
         return 1.0 - self.confidence
 
 
-def seed_damages(runs: pd.DataFrame) -> dict[tuple[str, int], pd.Series]:
-    """Per (variant key, start): damage by seed, seeds in order."""
+def seed_damages(runs: pd.DataFrame,
+                 order: list[int] | None = None) -> dict[tuple[str, int], pd.Series]:
+    """Per (variant key, start): damage by seed, indexed by the seed's place in ``order`` (the
+    order seeds are added in; default: seeds 0, 1, 2, ...), so "the first n seeds" is index < n.
+    Seeds outside ``order`` are left out."""
     paired = paired_damage(runs)
     if "variant" not in paired:
         paired = paired.assign(variant="")
+    if order is not None:
+        place = {int(seed): i for i, seed in enumerate(order)}
+        paired = paired[paired.seed.isin(place)].assign(seed=lambda f: f.seed.map(place))
     out = {}
     for (variant, start), group in paired.groupby(["variant", "start_epoch"]):
         out[(str(variant), int(start))] = group.set_index("seed").damage.sort_index()

@@ -79,6 +79,8 @@ class SequentialDesign(Design):
     def __init__(self, plain: dict[str, Any], seeds: list[int], state: Any = None):
         super().__init__(plain, seeds, state)
         self._check_block()
+        self.order = seed_order(self.seeds, self.stages.cap)
+        self.place = {seed: i for i, seed in enumerate(self.order)}
         self.cells = _cells_from_state(state)
         self.futile = _futile_from_state(state)
         self.history: list[str] = []
@@ -203,8 +205,8 @@ class SequentialDesign(Design):
     def _runs(self, cells: dict[tuple[int, int], int]) -> list[RunSpec]:
         runs = [RunSpec(seed=seed, start=start, length=self.length, end=self.epochs,
                         variant=self.key_of(level))
-                for (start, level), n in sorted(cells.items()) for seed in range(n)]
-        return runs + [baseline(seed, self.epochs) for seed in range(max(cells.values()))]
+                for (start, level), n in sorted(cells.items()) for seed in self.order[:n]]
+        return runs + [baseline(seed, self.epochs) for seed in self.order[:max(cells.values())]]
 
     # --- reading back -----------------------------------------------------------------
     def runs_used(self, runs: pd.DataFrame) -> pd.DataFrame:
@@ -214,10 +216,11 @@ class SequentialDesign(Design):
         keys = {self.key_of(v): v for v in range(self.level_count())}
         most = max(self.cells.values())
         variant = runs.variant if "variant" in runs else pd.Series("", index=runs.index)
-        used = [(r.is_baseline == 1 and r.seed < most) or (
+        place = [self.place.get(int(seed), len(self.order)) for seed in runs.seed]
+        used = [(r.is_baseline == 1 and i < most) or (
             r.length == self.length and str(v) in keys
-            and r.seed < self.cells.get((int(r.start_epoch), keys[str(v)]), 0))
-            for r, v in zip(runs.itertuples(), variant, strict=True)]
+            and i < self.cells.get((int(r.start_epoch), keys[str(v)]), 0))
+            for r, v, i in zip(runs.itertuples(), variant, place, strict=True)]
         return runs[pd.Series(used, index=runs.index, dtype=bool)
                     & (runs.end_epoch == self.epochs)]
 
@@ -237,7 +240,7 @@ class SequentialDesign(Design):
         rule = StagedRule(stages=self.stages, tolerance=float(tolerance), confidence=confidence,
                           futility=float(self.block["futility"]),
                           family_size=self.holm_family_size(), sd_floor=resolution(mine))
-        table = add_staged_verdicts(table, seed_damages(mine), rule)
+        table = add_staged_verdicts(table, seed_damages(mine, self.order), rule)
         # Futility is sticky: a window stopped for it gets no more seeds, even if a later
         # round's recycled Holm level would raise its conditional power again.
         sticky = [self.cell_of(r) in self.futile and r.stopped == OPEN
@@ -298,7 +301,7 @@ class SequentialDesign(Design):
         extra += [Fact(planner.FUTILE, starts=futile)] if futile else []
         if answer.undetermined_starts:
             extra.append(Fact(planner.FRESH_SEEDS, starts=tuple(answer.undetermined_starts),
-                              count=max(self.seeds) + 1, seeds=self.stages.cap))
+                              count=max(self.order) + 1, seeds=self.stages.cap))
         extra.append(Fact(planner.SEQUENTIAL, count=self.holm_family_size(),
                           seeds=self.stages.cap))
         answer.facts = facts[:-1] + extra + facts[-1:]  # the proxy caveat stays last
@@ -331,6 +334,14 @@ class SequentialDesign(Design):
                 f"every {self.resolution} (first pass every {self.step}), seeds in stages "
                 f"{list(self.stages.seeds)} ({self.stages.kind} spending)"
                 + variants_summary(self.variants))
+
+
+def seed_order(seeds: list[int], count: int) -> list[int]:
+    """The ``count`` seeds a staged design adds, in order: the configured ones, then the numbers
+    after the largest when its stages need more (``seeds=10`` and a cap of 16: seeds 0..15;
+    ``seeds=[16,...,31]``: those, for a second look on seeds not yet used)."""
+    more = range(max(seeds, default=-1) + 1, max(seeds, default=-1) + 1 + count)
+    return [*seeds, *more][:count]
 
 
 def _cells_from_state(state: Any) -> dict[tuple[int, int], int]:
