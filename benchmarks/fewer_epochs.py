@@ -14,6 +14,10 @@ For each configuration:
     sequential test can decide at this cap. It needs no training of its own: the runs it asks
     for are runs of (b) (same seeds, exact branching), so it is replayed on a copy of (b)'s
     folder, and its epochs are the ones it would have trained (no wall time).
+(e) optional (``--ways fresh seqfresh``): **(b) and (c) again on fresh seeds** (cap .. 2 cap - 1):
+    whether each repeats its own answer, and whether (c) matches (b) on those seeds too;
+(f) with (e): **the grid on all 2 cap seeds**, (b) and (e)'s grid pooled, the best answer at
+    hand, against which every 16-seed answer is read.
 
 It reports total epochs trained (trunks plus branches), wall time, and whether the planner's
 answer is the same: for each severity level, the critical window (first and latest critical
@@ -23,7 +27,8 @@ branching makes bit-identical, so its answer is (b)'s; the script checks the fin
 of the runs (a) trained against (b)'s. With ``--naive-share K`` (a) trains every K-th run only
 and projects its wall time from them (the report says so).
 
-    python benchmarks/fewer_epochs.py [--only demo noise40 severity] [--ways grid seq naive every]
+    python benchmarks/fewer_epochs.py [--only demo noise40 severity]
+                                      [--ways grid seq naive every fresh seqfresh]
                                       [--naive-share 1] [--results-dir DIR] [--out FILE]
 
 Each way's measurement is kept in --results-dir, so the ways can be trained at different times
@@ -41,6 +46,9 @@ import time
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
+import pandas as pd
+
+from periodscan.analysis.recovery import join_recovery, recovery_frame
 from periodscan.analysis.verdicts import CRITICAL, SAFE
 from periodscan.api import load_sweep
 from periodscan.config import TRAINING_KEYS
@@ -51,6 +59,9 @@ from periodscan.jobs.sweep import run_sweep
 HERE = Path(__file__).resolve().parent
 STAGES = [3, 5, 8, 12, 16]
 WAYS = ("grid", "seq", "naive", "every")
+#: Optional: the tree grid and the sequential design again on fresh seeds (cap .. 2 cap - 1),
+#: to see how far each one's answer repeats.
+FRESH, SEQ_FRESH = "fresh", "seqfresh"
 CAP = STAGES[-1]
 LENGTH, EPOCHS = 15, 60
 
@@ -80,26 +91,54 @@ def common(results_dir: Path, name: str, config: dict) -> list[str]:
             "tolerance=0.5", "executor=local", "executor.workers=2"]
 
 
-def grid_overrides(results_dir: Path, name: str, config: dict) -> list[str]:
+def grid_overrides(results_dir: Path, name: str, config: dict,
+                   first_seed: int = 0) -> list[str]:
     starts = grid_starts(config["resolution"])
+    seeds = ",".join(map(str, range(first_seed, first_seed + CAP)))
     return [*common(results_dir, name, config), "design=window",
             f"design.starts=[{','.join(map(str, starts))}]", f"design.lengths=[{LENGTH}]",
-            f"seeds={CAP}"]
+            f"seeds=[{seeds}]" if first_seed else f"seeds={CAP}"]
 
 
 def sequential_overrides(results_dir: Path, name: str, config: dict,
-                         every: bool = False) -> list[str]:
+                         every: bool = False, first_seed: int = 0) -> list[str]:
     step = config["resolution"] if every else config["initial_step"]
+    seeds = ",".join(map(str, range(first_seed, first_seed + CAP)))
     return [*common(results_dir, name, config), "design=sequential", f"design.length={LENGTH}",
             f"design.resolution={config['resolution']}", f"design.initial_step={step}",
-            f"design.stages=[{','.join(map(str, STAGES))}]", f"seeds={CAP}",
+            f"design.stages=[{','.join(map(str, STAGES))}]",
+            f"seeds=[{seeds}]" if first_seed else f"seeds={CAP}",
             *(["design.futility=0"] if every else [])]
 
 
 def answers(folder: Path) -> dict[str, dict]:
     """Per level (label): the planner's answer as comparable pieces."""
     with load_sweep(folder) as view:
-        plan = view.plan(LENGTH)
+        return pieces(view.plan(LENGTH))
+
+
+def pooled_answer(folders: list[Path], overrides: list[str]) -> dict[str, dict]:
+    """The grid's answer on the runs of several folders at once (their seeds pooled), read
+    the way ``SweepView.plan`` reads one folder: verdicts, then the recovery trends joined in."""
+    views = [load_sweep(folder) for folder in folders]
+    try:
+        runs = pd.concat([v.runs for v in views], ignore_index=True)
+        epochs = pd.concat([v.epochs for v in views], ignore_index=True)
+        classes = views[0].meta.get("num_classes")
+    finally:
+        for view in views:
+            view.close()
+    seeds = f"seeds={runs.seed.nunique()}"
+    design = prepare([o if not o.startswith("seeds=") else seeds for o in overrides]).design
+    table = design.table(runs, 0.95, 0.5, None, num_classes=classes)
+    trends = recovery_frame(runs, epochs, EPOCHS, tolerance=0.5, confidence=0.95,
+                            family=design.family, family_size=design.holm_family_size())
+    plan = design.plan(runs, join_recovery(table, trends), length=LENGTH, sweep="pooled")
+    return pieces(plan)
+
+
+def pieces(plan) -> dict[str, dict]:
+    """Per level (label): a plan's answer as comparable pieces."""
     per_level = getattr(plan, "answers", None) or {"": plan}
     labels = getattr(plan, "labels", None) or {"": "-"}
     out = {}
@@ -139,13 +178,23 @@ def naive_grid(overrides: list[str], stride: int, workers: int = 2) -> tuple[dic
     return accs, time.perf_counter() - started
 
 
-def compare(grid: dict, seq: dict) -> list[str]:
-    """The two answers side by side, level by level, and where their verdicts part."""
+def same_answer(ref: dict, other: dict) -> tuple[bool, bool]:
+    """Of one level: the same critical window and safe-from; the other's best slot safe in the
+    reference (or both without one)."""
+    edges = ref["window"] == other["window"] and ref["safe_from"] == other["safe_from"]
+    best_ok = other["best"] is None if ref["best"] is None else other["best"] in ref["safe"]
+    return edges, best_ok
+
+
+def compare(grid: dict, seq: dict, names: tuple[str, str] = ("grid", "seq")) -> list[str]:
+    """Two answers side by side, level by level, and where their verdicts part; the first is
+    the reference (the second's best slot must be safe in it)."""
+    a, b = names
+    pad = " " * (len(a) - len(b))
     lines, same_all = [], True
     for level, g in grid.items():
         s = seq[level]
-        same = g["window"] == s["window"] and g["safe_from"] == s["safe_from"]
-        best_ok = s["best"] is None if g["best"] is None else s["best"] in g["safe"]
+        same, best_ok = same_answer(g, s)
         same_all &= same and best_ok
         verdict = {**{x: "safe" for x in g["safe"]}, **{x: "critical" for x in g["critical"]}}
         mine = {**{x: "safe" for x in s["safe"]}, **{x: "critical" for x in s["critical"]}}
@@ -153,13 +202,13 @@ def compare(grid: dict, seq: dict) -> list[str]:
         lost = sorted(x for x in verdict if x not in mine)
         extra = sorted(x for x in mine if x not in verdict)
         lines += [
-            f"  level {level}: critical window grid {g['window']} seq {s['window']}; safe from "
-            f"grid {g['safe_from']} seq {s['safe_from']}; best safe slot grid {g['best']} seq "
-            f"{s['best']} (safe in the grid: {best_ok}); same answer: {same and best_ok}",
-            f"    grid critical {g['critical']}, safe {g['safe']}",
-            f"    seq  critical {s['critical']}, safe {s['safe']}",
-            f"    opposite verdicts: {clash or 'none'}; decided by the grid, undetermined by seq: "
-            f"{lost or 'none'}; decided (or implied) by seq, undetermined by the grid: "
+            f"  level {level}: critical window {a} {g['window']} {b} {s['window']}; safe from "
+            f"{a} {g['safe_from']} {b} {s['safe_from']}; best safe slot {a} {g['best']} {b} "
+            f"{s['best']} (safe in the {a}: {best_ok}); same answer: {same and best_ok}",
+            f"    {a} critical {g['critical']}, safe {g['safe']}",
+            f"    {b}{pad} critical {s['critical']}, safe {s['safe']}",
+            f"    opposite verdicts: {clash or 'none'}; decided by the {a}, undetermined by {b}: "
+            f"{lost or 'none'}; decided (or implied) by {b}, undetermined by the {a}: "
             f"{extra or 'none'}"]
     lines.append(f"  same planner answer on every level: {same_all}")
     return lines
@@ -181,10 +230,11 @@ def measure(name: str, config: dict, root: Path, way: str, stride: int) -> dict:
     if done is not None:
         return done
     grid_o = grid_overrides(root / "grid", name, config)
-    if way == "grid":
-        g = run_sweep(grid_o, quiet=True)
+    if way in ("grid", FRESH):
+        g = run_sweep(grid_o if way == "grid" else
+                      grid_overrides(root / FRESH, name, config, first_seed=CAP), quiet=True)
         data = dict(epochs=g.epochs_shared, seconds=g.seconds, folder=str(g.folder))
-    elif way in ("seq", "every"):
+    elif way in ("seq", "every", SEQ_FRESH):
         every = way == "every"
         folder = root / way / name
         if folder.exists():
@@ -192,7 +242,9 @@ def measure(name: str, config: dict, root: Path, way: str, stride: int) -> dict:
         if every:  # a replay: start from the grid's runs, train nothing new
             shutil.copytree(_record(root, name, "grid")["folder"], folder,
                             ignore=shutil.ignore_patterns("checkpoints"))
-        s = run_sweep(sequential_overrides(root / way, name, config, every=every), quiet=True)
+        first_seed = CAP if way == SEQ_FRESH else 0
+        s = run_sweep(sequential_overrides(root / way, name, config, every=every,
+                                           first_seed=first_seed), quiet=True)
         data = dict(epochs=s.epochs_shared, seconds=None if every else s.seconds,
                     folder=str(s.folder), notes=s.notes)
     else:
@@ -253,7 +305,57 @@ def report(name: str, config: dict, root: Path) -> list[str]:
                   *compare(grid_answer, answers(Path(way["folder"]))),
                   "  decided by the grid, measured here but left undetermined:",
                   *why(Path(g["folder"]), Path(way["folder"]))]
+    fresh, seq_fresh = _record(root, name, FRESH), _record(root, name, SEQ_FRESH)
+    if fresh is not None and seq_fresh is not None:
+        lines += fresh_seeds(name, config, root, Path(g["folder"]), Path(s["folder"]),
+                             Path(fresh["folder"]), seq_fresh)
     return lines
+
+
+def fresh_seeds(name: str, config: dict, root: Path, grid: Path, seq: Path, fresh: Path,
+                seq_fresh: dict) -> list[str]:
+    """(e) the grid and the sequential design again on fresh seeds: does each repeat its own
+    answer, and does the sequential answer match the grid's on those seeds too? (f) all 32
+    seeds of the two grids pooled: the best answer at hand, that every 16-seed answer is read
+    against."""
+    seeds = f"{CAP}..{2 * CAP - 1}"
+    answer = {"grid": answers(grid), "seq": answers(seq), "grid'": answers(fresh),
+              "seq'": answers(Path(seq_fresh["folder"]))}
+    pooled = pooled_answer([grid, fresh], grid_overrides(root / "grid", name, config))
+    epochs = seq_fresh["epochs"]
+    naive = _record(root, name, "naive")["epochs"]
+    lines = [f"(e) again on fresh seeds {seeds}: tree grid (grid') and sequential (seq', "
+             f"{epochs} epochs, {epochs / naive:.3f} of naive, {seq_fresh['seconds']:.0f} s)",
+             *[f"  {n}" for n in seq_fresh["notes"]]]
+    for a, b in (("grid", "grid'"), ("seq", "seq'"), ("grid'", "seq'")):
+        lines += [f" {b} against {a}:", *compare(answer[a], answer[b], (a, b))]
+    lines.append(f"(f) the grid on all {2 * CAP} seeds ((b) and grid' pooled) against each "
+                 "16-seed answer:")
+    for b in answer:
+        lines += [f" {b}:", *compare(pooled, answer[b], ("pooled", b))]
+    lines.append("  in short, per answer: same answer as pooled on every level; starts with the "
+                 "opposite verdict; share of pooled's decided (level, start) cells it decides")
+    for b, mine in answer.items():
+        same, opposite, decided, total = tally(pooled, mine)
+        lines.append(f"    {b:6s} same {str(same):5s}  opposite {opposite}  decided "
+                     f"{decided}/{total}")
+    return lines
+
+
+def tally(reference: dict, other: dict) -> tuple[bool, int, int, int]:
+    """Against a reference answer, over every level: the same answer (as :func:`compare`
+    judges it), cells with the opposite verdict, and how many of the reference's decided cells
+    the other decides too (of how many)."""
+    same, opposite, decided, total = True, 0, 0, 0
+    for level, ref in reference.items():
+        mine = other[level]
+        edges, best_ok = same_answer(ref, mine)
+        same &= edges and best_ok
+        for kind, other_kind in ((CRITICAL, SAFE), (SAFE, CRITICAL)):
+            opposite += len(set(ref[kind]) & set(mine[other_kind]))
+            decided += len(set(ref[kind]) & set(mine[kind]))
+            total += len(ref[kind])
+    return same, opposite, decided, total
 
 
 def main() -> None:
@@ -265,7 +367,7 @@ def main() -> None:
     parser.add_argument("--results-dir", default=None,
                         help="keep the folders here (default: a folder under /tmp)")
     parser.add_argument("--out", default=str(HERE / "results" / "fewer_epochs.txt"))
-    parser.add_argument("--ways", nargs="+", choices=WAYS, default=list(WAYS),
+    parser.add_argument("--ways", nargs="+", choices=[*WAYS, FRESH, SEQ_FRESH], default=list(WAYS),
                         help="which ways to measure now (each is kept in --results-dir; the "
                              "report needs all four)")
     args = parser.parse_args()
