@@ -91,23 +91,27 @@ def common(results_dir: Path, name: str, config: dict) -> list[str]:
             "tolerance=0.5", "executor=local", "executor.workers=2"]
 
 
+def seeds_override(first_seed: int) -> str:
+    """``cap`` seeds from ``first_seed`` on (a count when they start at 0, as before)."""
+    if not first_seed:
+        return f"seeds={CAP}"
+    return f"seeds=[{','.join(map(str, range(first_seed, first_seed + CAP)))}]"
+
+
 def grid_overrides(results_dir: Path, name: str, config: dict,
                    first_seed: int = 0) -> list[str]:
     starts = grid_starts(config["resolution"])
-    seeds = ",".join(map(str, range(first_seed, first_seed + CAP)))
     return [*common(results_dir, name, config), "design=window",
             f"design.starts=[{','.join(map(str, starts))}]", f"design.lengths=[{LENGTH}]",
-            f"seeds=[{seeds}]" if first_seed else f"seeds={CAP}"]
+            seeds_override(first_seed)]
 
 
 def sequential_overrides(results_dir: Path, name: str, config: dict,
                          every: bool = False, first_seed: int = 0) -> list[str]:
     step = config["resolution"] if every else config["initial_step"]
-    seeds = ",".join(map(str, range(first_seed, first_seed + CAP)))
     return [*common(results_dir, name, config), "design=sequential", f"design.length={LENGTH}",
             f"design.resolution={config['resolution']}", f"design.initial_step={step}",
-            f"design.stages=[{','.join(map(str, STAGES))}]",
-            f"seeds=[{seeds}]" if first_seed else f"seeds={CAP}",
+            f"design.stages=[{','.join(map(str, STAGES))}]", seeds_override(first_seed),
             *(["design.futility=0"] if every else [])]
 
 
