@@ -134,7 +134,7 @@ def execute(tree: RunTree, ledger: Ledger, folder: Path, training: dict[str, Any
             if not state.running:
                 break  # what is left hangs below a failed segment
             for future in executor.wait_first(state.running):
-                result = collect_result(state, future)
+                result = collect_result(state, future, executor.isolate_retries)
                 if result is not None:
                     record_result(state, result)
     finally:
@@ -217,23 +217,27 @@ def job_config(state: Scheduler, variant: str) -> dict[str, Any]:
     return {**state.training, "deficit": state.variants[variant]}
 
 
-def collect_result(state: Scheduler, future) -> SegmentResult | None:
+def collect_result(state: Scheduler, future, isolated: bool = False) -> SegmentResult | None:
     """The finished segment's result; None when its worker died and it goes back to wait.
 
-    A segment whose worker dies more than ``MAX_WORKER_RETRIES`` times comes back failed.
+    A segment whose worker dies more than ``MAX_WORKER_RETRIES`` times comes back failed. With
+    ``isolated`` retries (a pool that breaks as a whole), the first loss is not counted: it
+    may have been another segment's death, and only the retries, run alone, say whose it was.
     """
     sid = state.running.pop(future)
     try:
         return future.result()
     except Exception as err:  # noqa: BLE001 - a worker process died
         state.retries[sid] = state.retries.get(sid, 0) + 1
-        if state.retries[sid] <= MAX_WORKER_RETRIES:
+        deaths = state.retries[sid] - 1 if isolated else state.retries[sid]
+        if deaths <= MAX_WORKER_RETRIES:
             state.waiting.add(sid)
             return None
         why = (str(err).strip().splitlines() or [""])[0]
+        alone = " while running alone" if isolated else ""
         return SegmentResult(
             segment_id=sid,
-            error=f"worker lost {state.retries[sid]} times: {type(err).__name__}: {why}")
+            error=f"worker lost {deaths} times{alone}: {type(err).__name__}: {why}")
 
 
 def record_result(state: Scheduler, result: SegmentResult) -> None:
