@@ -18,8 +18,11 @@ from periodscan.analysis.verdicts import add_verdicts
 from periodscan.api import load_sweep
 from periodscan.designs.sequential import seed_order
 from periodscan.errors import ConfigError
+from periodscan.jobs.prepare import prepare
 from periodscan.jobs.sweep import run_sweep
-from periodscan.views.plan import fact_text
+from periodscan.views.answers import answer_text
+from periodscan.views.plan import fact_text, format_plan
+from periodscan.views.variants import severity_lines
 
 SEQUENTIAL = {"kind": "sequential", "length": 3, "resolution": 1, "initial_step": 2,
               "first_start": 0, "last_start": 4, "stages": [2, 3, 4],
@@ -173,3 +176,65 @@ def test_a_named_seed_list_is_the_one_trained_and_tested_in_its_order(make_confi
         assert row.damage == pytest.approx(np.mean(damage))
     fresh = next(f for f in plan.facts if f.code == planner.FRESH_SEEDS)
     assert fresh.count == 8  # the first seed after the ones named
+
+
+# --- answers that rest on implied starts and levels (synthetic runs, no training) -----------
+
+def _clear_damage_runs(design, points: float = 5.0) -> pd.DataFrame:
+    """A ledger-shaped runs frame holding every run the design could ask for: each window
+    ``points`` below its seed's baseline (plus a little noise), at every start and level."""
+    rng = np.random.default_rng(3)
+    base = {seed: 0.9 + rng.normal(0, 0.01) for seed in design.order}
+    keys = [design.key_of(v) for v in range(design.level_count())]
+    row = dict(end_epoch=design.epochs, status="done", n_test=1000)
+    rows = [dict(row, run_id=f"b{seed}", seed=seed, start_epoch=0, length=0, is_baseline=1,
+                 test_acc=acc, variant="") for seed, acc in base.items()]
+    rows += [dict(row, run_id=f"{key}w{start}s{seed}", seed=seed, start_epoch=start,
+                  length=design.length, is_baseline=0, variant=key,
+                  test_acc=acc - (points + rng.normal(0, 0.05)) / 100)
+             for key in keys for start in design.grid() for seed, acc in base.items()]
+    return pd.DataFrame(rows)
+
+
+def _replayed_plan(make_config, design_block):
+    """The design run round by round on synthetic runs, and its plan."""
+    design = prepare(make_config(design=design_block, seeds=4)).design
+    runs = _clear_damage_runs(design)
+    for _ in design.rounds(lambda: runs):
+        pass
+    return design, design.plan(design.runs_used(runs), design.last_table, length=3, sweep="t")
+
+
+def test_implied_critical_starts_join_the_measured_ones_in_one_critical_window(make_config):
+    # Starts 0, 2, 4 measured and decided critical imply 1 and 3; the critical window is
+    # grouped over the grid (it was grouped over measured starts only and failed to render).
+    design, plan = _replayed_plan(make_config, dict(SEQUENTIAL))
+    assert set(design.last_table.start) == {0, 2, 4}
+    assert plan.critical_starts == [0, 1, 2, 3, 4]
+    assert plan.critical_stretches() == [[0, 1, 2, 3, 4]]
+    implied = next(f for f in plan.facts if f.code == planner.IMPLIED)
+    assert list(implied.starts) == [1, 3]
+    assert "critical window: starts 0 to 4" in format_plan(plan)
+
+
+def test_a_level_never_measured_still_gets_its_implied_answer(make_config):
+    # Critical at the mildest and the harshest level at both starts: the middle levels are
+    # implied critical and never trained. The plan answers every level, and the severity
+    # table keeps each level in its own column.
+    levels = [0.5, 1.0, 2.0, 4.0]
+    block = dict(SEQUENTIAL, severity={"param": "sigma", "levels": levels}, first_start=0,
+                 last_start=4, initial_step=4, resolution=4)
+    design, plan = _replayed_plan(make_config, block)
+    measured = set(design.last_table.variant)
+    assert measured == {design.key_of(0), design.key_of(3)}
+    assert list(plan.answers) == [design.key_of(v) for v in range(4)]
+    for level in (1, 2):
+        answer = plan.answers[design.key_of(level)]
+        assert answer.starts == [] and answer.critical_starts == [0, 4]
+        assert [f.starts for f in answer.facts if f.code == planner.IMPLIED] == [(0, 4)]
+    text = answer_text(plan)
+    assert "critical window: starts 0 to 4" in text
+    lines = severity_lines(plan)
+    head, rows = lines[1], lines[3:]
+    assert len(rows) == 2 and all(len(r) == len(head) for r in rows)
+    assert all(r.split()[3:5] == ["-", "-"] for r in rows)  # start, CRITICAL +x.xx, -, -

@@ -111,8 +111,10 @@ class PlanAnswer:
         return pd.DataFrame([asdict(s) for s in self.starts])
 
     def critical_stretches(self) -> list[list[int]]:
-        """Critical starts grouped into runs of neighbouring measured starts."""
-        order = [s.start for s in self.starts]
+        """Critical starts grouped into runs of neighbouring starts: measured ones, and those a
+        design answers without measuring (a sequential design's implied starts)."""
+        order = sorted({s.start for s in self.starts}.union(
+            self.critical_starts, self.safe_starts, self.undetermined_starts))
         groups: list[list[int]] = []
         for start in self.critical_starts:
             if groups and order.index(start) == order.index(groups[-1][-1]) + 1:

@@ -13,7 +13,7 @@ one length (:func:`variant_table`). Across variants the sweep answers two more q
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -65,7 +65,8 @@ class SeverityAnswer:
 
     ``safe_up_to``: the most severe level that is safe with every milder level safe too (None
     when the mildest is not safe). ``critical_from``: the least severe critical level (None
-    when none is critical). ``verdicts`` holds every level's verdict, mildest first.
+    when none is critical). ``verdicts`` holds every measured level's verdict, mildest first,
+    and ``keys`` its variant key (a sequential design does not measure every level everywhere).
     """
 
     start: int
@@ -74,6 +75,11 @@ class SeverityAnswer:
     levels: list[Any]
     verdicts: list[str]
     damages: list[float]
+    keys: list[str] = field(default_factory=list)
+
+    def cells(self) -> dict[str, tuple[str, float]]:
+        """(verdict, damage) of each measured level, by variant key."""
+        return dict(zip(self.keys, zip(self.verdicts, self.damages, strict=True), strict=True))
 
 
 def severity_answers(table: pd.DataFrame, length: int) -> list[SeverityAnswer]:
@@ -95,7 +101,8 @@ def severity_answers(table: pd.DataFrame, length: int) -> list[SeverityAnswer]:
         out.append(SeverityAnswer(start=int(start), safe_up_to=safe_up_to,
                                   critical_from=critical[0] if critical else None,
                                   levels=levels, verdicts=verdicts,
-                                  damages=[float(d) for d in group.damage]))
+                                  damages=[float(d) for d in group.damage],
+                                  keys=[str(k) for k in group.index]))
     return out
 
 

@@ -265,12 +265,19 @@ class SequentialDesign(Design):
             settings = PlanSettings(schedule_epochs=self.epochs,
                                     production_epochs=production_epochs,
                                     holm_family=self.holm_family_size())
+            labels = {v.key: v.label for v in self.variants}
             answer = variant_plan(runs, table, length, settings, sweep=sweep,
-                                  axis=self.layout.variant_axis,
-                                  labels={v.key: v.label for v in self.variants})
+                                  axis=self.layout.variant_axis, labels=labels)
+            measured = next(iter(answer.answers.values()))
             for level in range(self.level_count()):
-                if self.key_of(level) in answer.answers:
-                    self._fill(answer.answers[self.key_of(level)], table, level)
+                key = self.key_of(level)
+                if key not in answer.answers:  # every verdict at this level implied
+                    answer.answers[key] = replace(measured, sweep=f"{sweep}, {labels[key]}",
+                                                  starts=[], best=None, best_is_safe=False,
+                                                  facts=measured.facts[-1:])
+                self._fill(answer.answers[key], table, level)
+            answer.answers = {k: answer.answers[k] for k in labels}
+            answer.labels = dict(labels)
             return answer
         answer = super().plan(runs, table, length=length, production_epochs=production_epochs,
                               sweep=sweep)

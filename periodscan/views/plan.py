@@ -42,7 +42,8 @@ def describe_stretch(a: PlanAnswer, group: list[int]) -> str:
         text += (f"; production epochs {epoch_number(a.production(first))} to "
                  f"{epoch_number(a.production(end))}")
     text += ")"
-    if all(s.short_recovery for s in a.starts if s.start in group):
+    measured = [s for s in a.starts if s.start in group]
+    if measured and all(s.short_recovery for s in measured):
         text += ", with little clean training after it"
     return text
 
@@ -174,8 +175,9 @@ def fact_text(a: PlanAnswer, fact: Fact) -> str:
             "decide them (conditional power below design.futility)."),
         facts.IMPLIED: lambda: (
             f"Start(s) {epoch_list(fact.starts)} were not trained: their verdict is implied by "
-            "the measured starts on either side, which agree (damage assumed monotone between "
-            "them)."),
+            "the measured starts on either side, which agree, or in a severity sweep by a milder "
+            "level found critical or a harsher one found safe at the same start (damage "
+            "assumed monotone between them)."),
         facts.FRESH_SEEDS: lambda: _fresh_seeds_text(a, fact),
         facts.PROXY: lambda: PROXY_CAVEAT,
     }

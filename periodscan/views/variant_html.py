@@ -34,8 +34,8 @@ def severity_html(plan: VariantPlan) -> str:
     """Per start: every level's verdict and damage, the most severe safe and least severe
     critical level."""
     heads = ["start", *plan.labels.values(), "safe up to", "critical from"]
-    rows = [[str(s.start), *(_verdict_cell(v, d) for v, d in zip(s.verdicts, s.damages,
-                                                                  strict=True)),
+    rows = [[str(s.start), *(_verdict_cell(*s.cells()[k]) if k in s.keys else "not measured"
+                             for k in plan.labels),
              _level(s.safe_up_to), _level(s.critical_from)] for s in plan.severity]
     return (f"<h3>Severity by start ({plan.length_used}-epoch deficits)</h3>"
             + _html_table(heads, rows)

@@ -63,15 +63,18 @@ def severity_lines(plan: VariantPlan) -> list[str]:
     """Per start: each level's verdict and damage, the most severe safe and least severe
     critical level."""
     labels = list(plan.labels.values())
-    width = max([12, *(len(label) for label in labels)])
+    texts = [{k: _cell(*cell) for k, cell in s.cells().items()} for s in plan.severity]
+    width = max([12, *(len(label) for label in labels),
+                 *(len(text) for cells in texts for text in cells.values())])
     head = (f"{'start':>5}  " + " ".join(f"{label:>{width}}" for label in labels)
             + f"  {'safe up to':>10}  {'critical from':>13}")
     lines = [f"Severity by start ({plan.length_used}-epoch deficits; 'safe up to': the most "
              "severe level that is safe with every milder level safe too; 'critical from': the "
-             "least severe critical level):", head, "-" * len(head)]
-    for s in plan.severity:
-        cells = " ".join(f"{_cell(v, d):>{width}}" for v, d in
-                         zip(s.verdicts, s.damages, strict=True))
+             "least severe critical level" + ("; '-': not measured there" if any(
+                 set(plan.labels) - set(s.keys) for s in plan.severity) else "") + "):",
+             head, "-" * len(head)]
+    for s, measured in zip(plan.severity, texts, strict=True):
+        cells = " ".join(f"{measured.get(k, '-'):>{width}}" for k in plan.labels)
         lines.append(f"{s.start:>5}  {cells}  {_level(s.safe_up_to):>10}  "
                      f"{_level(s.critical_from):>13}")
     return lines
