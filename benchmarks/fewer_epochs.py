@@ -134,11 +134,21 @@ def pooled_answer(folders: list[Path], overrides: list[str]) -> dict[str, dict]:
             view.close()
     seeds = f"seeds={runs.seed.nunique()}"
     design = prepare([o if not o.startswith("seeds=") else seeds for o in overrides]).design
-    table = design.table(runs, 0.95, 0.5, None, num_classes=classes)
-    trends = recovery_frame(runs, epochs, EPOCHS, tolerance=0.5, confidence=0.95,
-                            family=design.family, family_size=design.holm_family_size())
-    plan = design.plan(runs, join_recovery(table, trends), length=LENGTH, sweep="pooled")
-    return pieces(plan)
+    return answer_on(design, runs, epochs, classes)
+
+
+def answer_on(design, runs: pd.DataFrame, epochs: pd.DataFrame, classes: int | None,
+              table: pd.DataFrame | None = None) -> dict[str, dict]:
+    """A design's answer on runs held in memory (``table``: its verdict table, when the
+    design has already computed it), read as ``SweepView.plan`` reads a folder."""
+    used = design.runs_used(runs)
+    if table is None:
+        table = design.table(used, 0.95, 0.5, None, num_classes=classes)
+    trends = recovery_frame(used, epochs[epochs.run_id.isin(used.run_id)], EPOCHS,
+                            tolerance=0.5, confidence=0.95, family=design.family,
+                            family_size=design.holm_family_size())
+    return pieces(design.plan(used, join_recovery(table, trends), length=LENGTH,
+                              sweep="in memory"))
 
 
 def pieces(plan) -> dict[str, dict]:
