@@ -121,17 +121,23 @@ def answers(folder: Path) -> dict[str, dict]:
         return pieces(view.plan(LENGTH))
 
 
-def pooled_answer(folders: list[Path], overrides: list[str]) -> dict[str, dict]:
-    """The grid's answer on the runs of several folders at once (their seeds pooled), read
-    the way ``SweepView.plan`` reads one folder: verdicts, then the recovery trends joined in."""
+def pooled_records(folders: list[Path]) -> tuple[pd.DataFrame, pd.DataFrame, int | None]:
+    """The runs and epoch records of several folders as one (their seeds pooled), and the
+    number of classes."""
     views = [load_sweep(folder) for folder in folders]
     try:
-        runs = pd.concat([v.runs for v in views], ignore_index=True)
-        epochs = pd.concat([v.epochs for v in views], ignore_index=True)
-        classes = views[0].meta.get("num_classes")
+        return (pd.concat([v.runs for v in views], ignore_index=True),
+                pd.concat([v.epochs for v in views], ignore_index=True),
+                views[0].meta.get("num_classes"))
     finally:
         for view in views:
             view.close()
+
+
+def pooled_answer(folders: list[Path], overrides: list[str]) -> dict[str, dict]:
+    """The grid's answer on the runs of several folders at once (their seeds pooled), read
+    the way ``SweepView.plan`` reads one folder: verdicts, then the recovery trends joined in."""
+    runs, epochs, classes = pooled_records(folders)
     seeds = f"seeds={runs.seed.nunique()}"
     design = prepare([o if not o.startswith("seeds=") else seeds for o in overrides]).design
     return answer_on(design, runs, epochs, classes)

@@ -46,7 +46,6 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from periodscan.api import load_sweep
 from periodscan.designs import load_design
 from periodscan.engine.tree import build_tree
 from periodscan.jobs.prepare import Prepared, prepare
@@ -119,14 +118,7 @@ class Way:
 def pooled(name: str, root: Path) -> Pooled:
     config = fe.CONFIGS[name]
     folders = [Path(fe._record(root, name, way)["folder"]) for way in ("grid", fe.FRESH)]
-    views = [load_sweep(folder) for folder in folders]
-    try:
-        runs = pd.concat([v.runs for v in views], ignore_index=True)
-        epochs = pd.concat([v.epochs for v in views], ignore_index=True)
-        classes = views[0].meta.get("num_classes")
-    finally:
-        for view in views:
-            view.close()
+    runs, epochs, classes = fe.pooled_records(folders)
     return Pooled(runs=runs, epochs=epochs, classes=classes,
                   grid=prepare(fe.grid_overrides(root / "grid", name, config)),
                   seq=prepare(fe.sequential_overrides(root / "seq", name, config)),
