@@ -22,6 +22,7 @@ from periodscan.jobs.prepare import prepare
 from periodscan.jobs.sweep import run_sweep
 from periodscan.views.answers import answer_text
 from periodscan.views.plan import fact_text, format_plan
+from periodscan.views.tables import format_table
 from periodscan.views.variants import severity_lines
 
 SEQUENTIAL = {"kind": "sequential", "length": 3, "resolution": 1, "initial_step": 2,
@@ -94,6 +95,25 @@ def test_tiny_sweep_runs_rounds_and_rereads_the_same_table(make_config):
     assert sorted(plan.critical_starts + plan.safe_starts + plan.undetermined_starts) == grid
 
 
+def test_the_bisection_shares_are_named_in_the_plan_and_the_table(make_config):
+    # the same tiny sweep with the first pass's starts holding alpha: a sweep without the field
+    # (made before it existed, as SEQUENTIAL here) reads back with Holm's even shares
+    cfg = make_config(design=dict(SEQUENTIAL, alpha_passing="bisection"), seeds=4)
+    outcome = run_sweep(cfg, quiet=True)
+    with load_sweep(outcome.folder) as view:
+        plan = view.plan(3)
+        assert view.design.passing == "bisection"
+        footer = format_table(view.table(with_mcnemar=False), view.design.layout)
+    fact = next(f for f in plan.facts if f.code == planner.SEQUENTIAL)
+    assert fact.starts == (0, 2, 4)  # the first pass: every initial_step=2 from 0 to 4
+    assert "first pass's starts (0, 2, 4) hold it in equal parts" in fact_text(plan, fact)
+    assert "alpha held by the first pass's starts" in footer and "Holm" not in footer
+    with load_sweep(_run(make_config)[1].folder) as view:
+        assert view.design.passing == "even"
+        even = next(f for f in view.plan(3).facts if f.code == planner.SEQUENTIAL)
+        assert even.starts == () and "Holm's correction" in fact_text(view.plan(3), even)
+
+
 def test_severity_levels_are_bisected_per_start(make_config):
     design = dict(SEQUENTIAL, severity={"param": "sigma", "levels": [0.5, 1.0, 2.0, 4.0]},
                   first_start=0, last_start=4, initial_step=4, resolution=4)
@@ -123,6 +143,7 @@ def test_severity_levels_are_bisected_per_start(make_config):
     ({"futility": 1.5}, "design.futility"),
     ({"deficits": ["blur", "noise"]}, "design.deficits"),
     ({"initial_step": 3, "resolution": 2}, "design.initial_step"),
+    ({"alpha_passing": "uneven"}, "design.alpha_passing"),
 ])
 def test_bad_fields_name_the_field(make_config, change, field):
     cfg = make_config(design=dict(SEQUENTIAL, **change))

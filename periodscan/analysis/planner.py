@@ -36,7 +36,8 @@ SCREENED = "screened"  # starts: measured on their first seeds only, not confirm
 STILL_RECOVERING = "still_recovering"  # starts: the paired gap still falls at the end
 UNDETERMINED = "undetermined"  # count: open starts; seeds: extra seeds to settle them all
 METHOD = "method"  # count: Holm family size when padded beyond the measured starts
-SEQUENTIAL = "sequential"  # count: Holm family size; seeds: the cap (replaces METHOD)
+SEQUENTIAL = "sequential"  # count: candidate starts; seeds: the cap (replaces METHOD); starts:
+#                            the first pass's, when they hold alpha (design.alpha_passing)
 FUTILE = "futile"  # starts: stopped early, more seeds unlikely to decide them
 IMPLIED = "implied"  # starts: not trained, verdict implied by the measured starts around them
 FRESH_SEEDS = "fresh_seeds"  # starts: left open by a staged design; count: first unused seed;

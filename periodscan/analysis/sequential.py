@@ -230,18 +230,32 @@ class Stages:
 
     def levels(self, alpha: float) -> np.ndarray:
         """Two-sided p-value level per look."""
-        if self.boundary == "union":
-            return np.diff(np.concatenate(([0.0], spent(self.kind, alpha, self.fractions))))
-        return nominal_levels(self.fractions, alpha, self.kind)
+        return np.array(_stage_levels(self, float(alpha)))
 
     def t_critical(self, alpha: float) -> np.ndarray:
         """|t| needed at each look: the look's level read on the t distribution with its
         n_k - 1 degrees of freedom. ``isf`` is t.ppf(1 - level/2) without losing the tail."""
-        return stats.t.isf(self.levels(alpha) / 2.0, np.asarray(self.seeds) - 1)
+        return np.array(_stage_t_critical(self, float(alpha)))
 
     def next_stage(self, n: int) -> int | None:
         """The smallest stage above ``n`` seeds (None at or past the cap)."""
         return next((s for s in self.seeds if s > n), None)
+
+
+@functools.lru_cache(maxsize=8192)
+def _stage_levels(stages: Stages, alpha: float) -> tuple[float, ...]:
+    """:meth:`Stages.levels`, cached: Holm's steps and a search's rounds ask for the same few
+    levels again and again."""
+    if stages.boundary == "union":
+        return tuple(np.diff(np.concatenate(([0.0], spent(stages.kind, alpha,
+                                                            stages.fractions)))))
+    return tuple(nominal_levels(stages.fractions, alpha, stages.kind))
+
+
+@functools.lru_cache(maxsize=8192)
+def _stage_t_critical(stages: Stages, alpha: float) -> tuple[float, ...]:
+    return tuple(stats.t.isf(np.array(_stage_levels(stages, alpha)) / 2.0,
+                             np.asarray(stages.seeds) - 1))
 
 
 def _level_table(stages: Stages, alpha: float, m: int) -> list[np.ndarray]:

@@ -6,7 +6,9 @@ design adds them), against the nominal level of look k of a group-sequential des
 alpha-spending function (:mod:`periodscan.analysis.sequential`). Holm's procedure runs over the
 family (the candidate starts of one variant, unmeasured ones never rejected) in its
 group-sequential form: a window decided at any look passes its level on to the others, whose
-boundaries are then recomputed for the larger level. A window is decided at the first look
+boundaries are then recomputed for the larger level. With a ``graph``
+(:mod:`periodscan.analysis.alpha_graph`) the shares of alpha start and pass as the graph says
+instead of evenly. A window is decided at the first look
 that crosses, in the direction of its mean there; the design stops adding seeds to it, so the
 verdict is final.
 
@@ -23,6 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from periodscan.analysis.alpha_graph import AlphaGraph, graph_rejections
 from periodscan.analysis.sensitivity import paired_damage
 from periodscan.analysis.sequential import Stages, conditional_power, sequential_holm
 from periodscan.analysis.stats import seeds_to_settle, t_interval, t_test_vs
@@ -44,6 +47,10 @@ class StagedRule:
     futility: float = 0.0
     family_size: int | None = None
     sd_floor: float = 0.0
+    #: Shares of alpha over the starts in ``family`` (the graph's hypotheses, in its order);
+    #: None: Holm over ``family_size``.
+    graph: AlphaGraph | None = None
+    family: tuple[int, ...] = ()
 
     @property
     def alpha(self) -> float:
@@ -98,26 +105,51 @@ def _judge_family(table: pd.DataFrame, rows: list, series: list[pd.Series],
     stages = rule.stages
     looks = [looks_of(d, stages, rule.tolerance, rule.sd_floor) for d in series]
     pvalues = [[t.pvalue if np.isfinite(t.pvalue) else 1.0 for t in tests] for tests in looks]
-    crossed = sequential_holm(pvalues, stages, rule.alpha, rule.family_size)
-    m = max(rule.family_size or 0, len(rows))
-    level = rule.alpha / max(m - sum(c is not None for c in crossed), 1)
-    for i, tests, damage, look in zip(rows, looks, series, crossed, strict=True):
+    crossed, levels, hopes = _crossings(pvalues, [int(table.at[i, "start"]) for i in rows], rule)
+    for i, tests, damage, look, level, hope in zip(rows, looks, series, crossed, levels, hopes,
+                                                   strict=True):
         if not tests:
             continue
         at = len(tests) - 1 if look is None else look
         test = tests[at]
         table.at[i, "p_value"] = tests[-1].pvalue
-        nominal = float(stages.levels(level)[at])
-        bound = t_interval(damage[damage.index < stages.seeds[at]].to_numpy(), 1.0 - nominal,
-                           sd_floor=rule.sd_floor)
-        table.at[i, "holm_low"], table.at[i, "holm_high"] = bound.low, bound.high
+        nominal = float(stages.levels(level)[at]) if level > 0 else 0.0
+        if nominal > 0:
+            bound = t_interval(damage[damage.index < stages.seeds[at]].to_numpy(),
+                               1.0 - nominal, sd_floor=rule.sd_floor)
+            table.at[i, "holm_low"], table.at[i, "holm_high"] = bound.low, bound.high
         if look is not None and test.mean != rule.tolerance:
             table.at[i, "verdict"] = CRITICAL if test.mean > rule.tolerance else SAFE
             table.at[i, "stopped"] = DECIDED
             continue
-        table.at[i, "stopped"] = _why_open(test, len(tests) - 1, level, rule)
-        table.at[i, "more_seeds"] = seeds_to_settle(test.mean, test.sd, max(test.n, 1),
-                                                    rule.tolerance, level)
+        table.at[i, "stopped"] = _why_open(test, len(tests) - 1, hope, rule)
+        if hope > 0:
+            table.at[i, "more_seeds"] = seeds_to_settle(test.mean, test.sd, max(test.n, 1),
+                                                        rule.tolerance, hope)
+
+
+def _crossings(pvalues: list[list[float]], starts: list[int],
+               rule: StagedRule) -> tuple[list[int | None], list[float], list[float]]:
+    """Per row: the look it was decided at (None if not), its level at the end, and the
+    level open windows are judged at for futility (with a graph: the level it would reach if
+    the starts passing to it, directly or through one other, were decided next, so a start the
+    graph feeds later is not written off before its neighbours are decided)."""
+    if rule.graph is None:
+        crossed = sequential_holm(pvalues, rule.stages, rule.alpha, rule.family_size)
+        m = max(rule.family_size or 0, len(pvalues))
+        level = rule.alpha / max(m - sum(c is not None for c in crossed), 1)
+        return crossed, [level] * len(pvalues), [level] * len(pvalues)
+    index = {s: k for k, s in enumerate(rule.family)}
+    missing = [s for s in starts if s not in index]
+    if missing:
+        raise ValueError(f"starts {missing} are not in the graph's family {rule.family}")
+    looks: list[list[float]] = [[] for _ in rule.family]
+    for start, p in zip(starts, pvalues, strict=True):
+        looks[index[start]] = p
+    result = graph_rejections(looks, rule.stages, rule.alpha, rule.graph)
+    at = [index[s] for s in starts]
+    return ([result.crossed[k] for k in at], [rule.alpha * result.shares[k] for k in at],
+            [rule.alpha * result.reachable[k] for k in at])
 
 
 def _why_open(test, look: int, level: float, rule: StagedRule) -> str:
@@ -127,6 +159,8 @@ def _why_open(test, look: int, level: float, rule: StagedRule) -> str:
         return AT_CAP
     if look < FUTILITY_FROM_LOOK or rule.futility <= 0:
         return OPEN
+    if level <= 0:
+        return OPEN  # its share may still come, through starts not decided yet
     critical = float(stages.t_critical(level)[-1])
     power = conditional_power(test.mean, test.sd, test.n, rule.tolerance, stages.cap, critical)
     return FUTILE if power < rule.futility else OPEN

@@ -14,6 +14,7 @@ class Layout:
     whether the curve has one line per deficit length (window designs) or one line in all.
     ``variant_axis`` names what a sweep of deficit variants varies ("deficit", or "Blur sigma"
     for severity levels); "" when every window trains the config's deficit.
+    ``correction`` says how the verdicts are corrected over ``family_words``.
     """
 
     axis: str = "start"
@@ -24,6 +25,8 @@ class Layout:
     label_format: str = "[{start}, {end})"
     line_format: str = "{length}-epoch deficit"
     variant_axis: str = ""
+    #: How verdicts are corrected for multiplicity, as the words before ``family_words``.
+    correction: str = "Holm-corrected over"
 
     def window_label(self, start: int, length: int) -> str:
         """'[10, 25)' for a window, 'until 25' for a removal run."""

@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 
 from periodscan.analysis import planner
+from periodscan.analysis.alpha_graph import AlphaGraph
 from periodscan.analysis.planner import Fact
 from periodscan.analysis.sensitivity import TableOptions, resolution, sensitivity_table
 from periodscan.analysis.sequential import SPENDING, Stages
@@ -45,10 +46,22 @@ from periodscan.analysis.variants import variant_table
 from periodscan.analysis.verdicts import CRITICAL, SAFE
 from periodscan.designs.base import Design, Measured
 from periodscan.designs.layout import WINDOW
-from periodscan.designs.staged_search import Known, first_levels, implied_labels, next_cells
+from periodscan.designs.staged_search import (
+    Known,
+    bisection_graph,
+    first_levels,
+    implied_labels,
+    next_cells,
+)
 from periodscan.designs.variants import SEVERITY_BLOCK, variants_summary
 from periodscan.engine.tree import RunSpec, baseline
 from periodscan.params import COUNT, EPOCH, Interval, ListOf, Options, bad_value
+
+#: How the level is shared over the candidate starts: ``even`` (Holm: every candidate start an
+#: equal share, a decided one passing its share evenly to the rest) or ``bisection`` (the starts
+#: of the first pass share it, a decided start passes it to the starts bisection measures next
+#: beside it; :func:`periodscan.designs.staged_search.bisection_graph`).
+PASSING = ("even", "bisection")
 
 STAGES = ListOf(Interval(int, 2, None), distinct=True,
                 words="a non-empty list of increasing seed counts (ints >= 2), "
@@ -71,6 +84,7 @@ class SequentialDesign(Design):
         "stages": [STAGES],
         "spending": [Options(SPENDING)],
         "futility": [Interval(float, 0.0, 1.0, closed="left")],
+        "alpha_passing": [Options(PASSING), None],  # None (a sweep from before it existed): even
         "max_rounds": [COUNT],
         "severity": [SEVERITY_BLOCK, None],
         "deficits": [None],
@@ -109,12 +123,17 @@ class SequentialDesign(Design):
             raise bad_value("design.stages", str(STAGES), b["stages"])
         self.stages = Stages(tuple(int(n) for n in b["stages"]), b["spending"])
         self.check_levels(self.confidence)
+        if self.passing == "bisection":
+            self.layout = replace(self.layout, correction="corrected (alpha held by the first "
+                                  "pass's starts, passed on along the bisection) over")
 
     def check_levels(self, confidence: float) -> None:
         """Holm's steps need each look's level to grow with alpha; O'Brien-Fleming-type
         spending stops doing so at large alpha (about 0.35 for stages 3, 5, 8, 12, 16)."""
         alpha = 1.0 - confidence
-        levels = [self.stages.levels(a) for a in np.linspace(alpha / 40, alpha, 40)]
+        shares = np.union1d(np.geomspace(alpha / 4000, alpha / 40, 20),
+                            np.linspace(alpha / 40, alpha, 40))
+        levels = [self.stages.levels(a) for a in shares]
         if any(np.any(b < a) for a, b in zip(levels[:-1], levels[1:], strict=True)):
             raise bad_value("confidence", f"a higher confidence with design.spending="
                             f"{self.stages.kind} and these stages (its looks' levels stop "
@@ -239,7 +258,8 @@ class SequentialDesign(Design):
         self.check_levels(confidence)
         rule = StagedRule(stages=self.stages, tolerance=float(tolerance), confidence=confidence,
                           futility=float(self.block["futility"]),
-                          family_size=self.holm_family_size(), sd_floor=resolution(mine))
+                          family_size=self.holm_family_size(), sd_floor=resolution(mine),
+                          graph=self.alpha_graph(), family=tuple(self.grid()))
         table = add_staged_verdicts(table, seed_damages(mine, self.order), rule)
         # Futility is sticky: a window stopped for it gets no more seeds, even if a later
         # round's recycled Holm level would raise its conditional power again.
@@ -250,6 +270,16 @@ class SequentialDesign(Design):
 
     def holm_family_size(self) -> int | None:
         return len(self.grid())
+
+    @property
+    def passing(self) -> str:
+        return self.block.get("alpha_passing") or "even"
+
+    def alpha_graph(self) -> AlphaGraph | None:
+        """The shares of alpha over the grid's starts (None: Holm's even shares)."""
+        if self.passing == "even":
+            return None
+        return bisection_graph(self.grid(), self.coarse(), self.resolution)
 
     def implied(self, table: pd.DataFrame) -> dict[tuple[int, int], str]:
         """Verdict of every (grid start, level): measured, or implied by monotonicity."""
@@ -310,7 +340,8 @@ class SequentialDesign(Design):
             extra.append(Fact(planner.FRESH_SEEDS, starts=tuple(answer.undetermined_starts),
                               count=max(self.order) + 1, seeds=self.stages.cap))
         extra.append(Fact(planner.SEQUENTIAL, count=self.holm_family_size(),
-                          seeds=self.stages.cap))
+                          seeds=self.stages.cap,
+                          starts=() if self.passing == "even" else tuple(self.coarse())))
         answer.facts = facts[:-1] + extra + facts[-1:]  # the proxy caveat stays last
         # The bound over all windows is a fixed-sample one; after data-dependent stopping it
         # would claim more than it holds, so a staged answer does not state it.

@@ -20,6 +20,10 @@ Two bisections, both assuming the damage is monotone between the cells they meas
 Starts between two measured starts with the same answer are not measured: their answer is
 implied (:func:`implied_labels`). A change that begins and ends between two measured starts
 with the same answer is missed; choose ``initial_step`` below the narrowest stretch that matters.
+
+:func:`bisection_graph` lays the shares of alpha along the same bisection, so that the starts
+the search measures first hold the level, and a decided start passes it to the starts the search
+would measure next beside it.
 """
 
 from __future__ import annotations
@@ -28,6 +32,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from itertools import takewhile
 
+from periodscan.analysis.alpha_graph import AlphaGraph
 from periodscan.analysis.verdicts import CRITICAL, SAFE, UNDETERMINED
 
 #: Label of a level no measurement speaks for.
@@ -145,6 +150,49 @@ def implied_labels(known: Mapping[tuple[int, int], Known], levels: int,
     return out
 
 
-__all__ = ["CRITICAL", "SAFE", "UNDETERMINED", "UNKNOWN", "Known", "first_levels",
+def bisection_graph(grid: list[int], coarse: list[int], resolution: int) -> AlphaGraph:
+    """Shares of alpha that follow the search over starts, fixed before any data.
+
+    The coarse starts (measured first, whatever the data) share alpha evenly; every other start
+    begins at zero. A decided start passes its share in equal parts to the next starts the
+    bisection would place beside it: a coarse start to the midpoints of the gaps to its coarse
+    neighbours, the midpoint of (a, b) to the midpoints of (a, m) and (m, b). A start with no
+    such midpoint (its neighbours are ``resolution`` apart) passes to the two starts whose gap
+    it halved, or, coarse, to its coarse neighbours. A share passed to a start the search never
+    measures stays there, unused; that costs power, never error control.
+    """
+    index = {s: i for i, s in enumerate(grid)}
+    if any(s not in index for s in coarse):
+        raise ValueError(f"coarse starts {coarse} must lie on the grid {grid}")
+    targets: dict[int, list[int]] = {}
+
+    def halves(a: int, b: int) -> None:
+        point = middle(a, b, resolution)
+        if point is None:
+            return
+        children = [c for c in (middle(a, point, resolution), middle(point, b, resolution))
+                    if c is not None]
+        targets[point] = children or [a, b]
+        halves(a, point)
+        halves(point, b)
+
+    for a, b in zip(coarse, coarse[1:], strict=False):
+        halves(a, b)
+    for j, start in enumerate(coarse):
+        neighbours = coarse[max(j - 1, 0):j] + coarse[j + 1:j + 2]
+        gaps = [tuple(sorted((start, n))) for n in neighbours]
+        children = [c for c in (middle(a, b, resolution) for a, b in gaps) if c is not None]
+        targets[start] = children or neighbours
+    m = len(grid)
+    weights = [1.0 / len(coarse) if s in coarse else 0.0 for s in grid]
+    passes = [[0.0] * m for _ in grid]
+    for start, to in targets.items():
+        for t in to:
+            passes[index[start]][index[t]] = 1.0 / len(to)
+    return AlphaGraph(tuple(weights), tuple(map(tuple, passes)))
+
+
+__all__ = ["CRITICAL", "SAFE", "UNDETERMINED", "UNKNOWN", "Known", "bisection_graph",
+           "first_levels",
            "edge_gaps", "implied_labels", "level_labels", "middle", "new_levels",
            "next_cells"]

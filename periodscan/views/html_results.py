@@ -101,8 +101,8 @@ def table_html(table: pd.DataFrame, layout: Layout, epochs: int) -> str:
                       for i, c in enumerate(cells))
         out.append(f"<tr class='v-{row.verdict}'>{tds}</tr>")
     out.append("</table></div>")
-    out.append(f"<p class='fig-note'>{escape(interval_summary(table))}; Holm-corrected over "
-               f"{escape(layout.family_words)}.</p>")
+    out.append(f"<p class='fig-note'>{escape(interval_summary(table))}; "
+               f"{escape(layout.correction)} {escape(layout.family_words)}.</p>")
     out += [f"<p class='fig-note'>{escape(line)}</p>"
             for line in established_lines(table, layout.per_length)]
     return "".join(out)
@@ -137,7 +137,7 @@ def method_html(table: pd.DataFrame, layout: Layout) -> str:
         f"(scipy.stats.bootstrap) from {BOOTSTRAP_MIN_SEEDS} on; used here: {used}. The seeds "
         "column says how many seeds each number rests on.",
         "Verdicts: for each window, a two-sided one-sample t test of the per-seed damages "
-        f"against the tolerance; Holm's correction over {layout.family_words}. A window whose "
+        f"against the tolerance; {layout.correction} {layout.family_words}. A window whose "
         "Holm-adjusted p-value clears the level is decided in the direction of its mean: "
         "critical = damage significantly above the tolerance (Holm lower bound above it); safe "
         "= significantly below (Holm upper bound below it); everything else is undetermined. A "

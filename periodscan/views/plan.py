@@ -161,14 +161,7 @@ def fact_text(a: PlanAnswer, fact: Fact) -> str:
             f"{fact.count} start(s) undetermined at this tolerance; settling all of them would "
             f"likely take {more_seeds_phrase(fact.seeds)}."),
         facts.METHOD: lambda: _method_text(fact.count),
-        facts.SEQUENTIAL: lambda: (
-            f"Verdicts: group-sequential two-sided paired t tests of mean damage against the "
-            f"tolerance. Seeds were added in stages up to {fact.seeds:g}; at each stage a start "
-            "is compared with an alpha-spending boundary, and Holm's correction runs over all "
-            f"{fact.count} candidate starts of the design's grid (unmeasured ones never "
-            "rejected), a decided start passing its level on to the others. A start is decided "
-            "at the first stage that crosses, in the direction of its mean, and gets no more "
-            "seeds."),
+        facts.SEQUENTIAL: lambda: _sequential_text(fact),
         facts.FUTILE: lambda: (
             f"Start(s) {epoch_list(fact.starts)} were stopped early as undetermined: with "
             "their observed mean and spread, the test at the last stage would be unlikely to "
@@ -200,6 +193,24 @@ def _production_text(a: PlanAnswer) -> str:
             f"of the production schedule, and the {length}-epoch window as {length * p / n:g} "
             "production epochs. This assumes sensitivity scales with the fraction of training "
             "completed.")
+
+
+def _sequential_text(fact) -> str:
+    """How a group-sequential answer was judged: Holm's even shares or the bisection's."""
+    if fact.starts:
+        sharing = (f"alpha is shared over all {fact.count} candidate starts of the design's grid "
+                   f"as the search goes: the first pass's starts ({epoch_list(fact.starts)}) "
+                   "hold it in equal parts, and a decided start passes its share to the starts "
+                   "the bisection measures next beside it (a graphical multiple-test procedure; "
+                   "starts never measured are never rejected)")
+    else:
+        sharing = (f"Holm's correction runs over all {fact.count} candidate starts of the "
+                   "design's grid (unmeasured ones never rejected), a decided start passing its "
+                   "level on to the others")
+    return ("Verdicts: group-sequential two-sided paired t tests of mean damage against the "
+            f"tolerance. Seeds were added in stages up to {fact.seeds:g}; at each stage a start "
+            f"is compared with an alpha-spending boundary, and {sharing}. A start is decided at "
+            "the first stage that crosses, in the direction of its mean, and gets no more seeds.")
 
 
 def _method_text(holm_family: int | None) -> str:

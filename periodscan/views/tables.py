@@ -86,7 +86,7 @@ def format_table(table: pd.DataFrame, layout: Layout = WINDOW, *,
     footer = interval_summary(table)
     if verdicts:
         footer = (f"verdicts against a tolerance of {table.tolerance.iloc[0]:g} points, "
-                  f"Holm-corrected over {layout.family_words}; {footer}")
+                  f"{layout.correction} {layout.family_words}; {footer}")
     lines.append(footer)
     lines += established_lines(table, layout.per_length, family_size)
     return "\n".join(lines)
