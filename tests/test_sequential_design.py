@@ -108,6 +108,7 @@ def test_the_bisection_shares_are_named_in_the_plan_and_the_table(make_config):
     assert fact.starts == (0, 2, 4)  # the first pass: every initial_step=2 from 0 to 4
     assert "first pass's starts (0, 2, 4) hold it in equal parts" in fact_text(plan, fact)
     assert "alpha held by the first pass's starts" in footer and "Holm" not in footer
+    assert "bounds at level" in format_plan(plan) and "Holm" not in format_plan(plan)
     with load_sweep(_run(make_config)[1].folder) as view:
         assert view.design.passing == "even"
         even = next(f for f in view.plan(3).facts if f.code == planner.SEQUENTIAL)

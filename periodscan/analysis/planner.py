@@ -106,6 +106,9 @@ class PlanAnswer:
     facts: list[Fact] = field(default_factory=list)
     #: Upper bound on damage at every start of this length (analysis/established.py).
     established: Established | None = None
+    #: What the per-start bounds are: Holm-adjusted, or each start's interval at the level it
+    #: holds (a sequential design sharing alpha along its search).
+    bounds_title: str = "Holm bounds"
 
     def frame(self) -> pd.DataFrame:
         """One row per measured start."""

@@ -1,4 +1,5 @@
-"""Verdicts for windows whose seeds were added in stages: group-sequential t tests with Holm.
+"""Verdicts for windows whose seeds were added in stages: group-sequential t tests, alpha shared
+over the family (Holm, or a graph of shares).
 
 Each window (one start, one deficit variant) is tested at every stage it has reached: the paired
 t test of "mean damage = tolerance" on its first ``stages.seeds[k]`` seeds (in the order the

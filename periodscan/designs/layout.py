@@ -27,6 +27,8 @@ class Layout:
     variant_axis: str = ""
     #: How verdicts are corrected for multiplicity, as the words before ``family_words``.
     correction: str = "Holm-corrected over"
+    #: Title of the bounds the verdicts rest on.
+    bounds_title: str = "Holm bounds"
 
     def window_label(self, start: int, length: int) -> str:
         """'[10, 25)' for a window, 'until 25' for a removal run."""

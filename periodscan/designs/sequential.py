@@ -11,9 +11,10 @@ The cheapest way this project has to answer the planning question. Three savings
   at each start takes about log2(levels) + 1 levels, not all of them.
 * **Seeds in stages.** Every window measured gets ``stages[0]`` seeds, then the next stage each
   round until it is decided, stopped for futility, or at the cap (the last stage). Verdicts come
-  from group-sequential t tests with an alpha-spending function and Holm's correction over the
-  whole grid of candidate starts (:mod:`periodscan.analysis.staged_verdicts`), so deciding a clear
-  window after a few seeds keeps the error rate at the confidence level.
+  from group-sequential t tests with an alpha-spending function, alpha shared over the whole
+  grid of candidate starts (:mod:`periodscan.analysis.staged_verdicts`; by default along the
+  bisection, ``design.alpha_passing``), so deciding a clear window after a few seeds keeps the
+  error rate at the confidence level.
 
 Every run is the run a full grid would train (exact branching); rounds share one folder.
 """
@@ -62,6 +63,9 @@ from periodscan.params import COUNT, EPOCH, Interval, ListOf, Options, bad_value
 #: of the first pass share it, a decided start passes it to the starts bisection measures next
 #: beside it; :func:`periodscan.designs.staged_search.bisection_graph`).
 PASSING = ("even", "bisection")
+
+#: With the bisection's shares each start's bounds are its t interval at the level it holds.
+BISECTION_BOUNDS = "bounds at level"
 
 STAGES = ListOf(Interval(int, 2, None), distinct=True,
                 words="a non-empty list of increasing seed counts (ints >= 2), "
@@ -125,10 +129,11 @@ class SequentialDesign(Design):
         self.check_levels(self.confidence)
         if self.passing == "bisection":
             self.layout = replace(self.layout, correction="corrected (alpha held by the first "
-                                  "pass's starts, passed on along the bisection) over")
+                                  "pass's starts, passed on along the bisection) over",
+                                  bounds_title=BISECTION_BOUNDS)
 
     def check_levels(self, confidence: float) -> None:
-        """Holm's steps need each look's level to grow with alpha; O'Brien-Fleming-type
+        """Passing shares on needs each look's level to grow with alpha; O'Brien-Fleming-type
         spending stops doing so at large alpha (about 0.35 for stages 3, 5, 8, 12, 16)."""
         alpha = 1.0 - confidence
         shares = np.union1d(np.geomspace(alpha / 4000, alpha / 40, 20),
@@ -141,7 +146,7 @@ class SequentialDesign(Design):
 
     # --- the grid -----------------------------------------------------------------------
     def grid(self) -> list[int]:
-        """Every candidate start: the Holm family of each variant."""
+        """Every candidate start: the multiple-test family of each variant."""
         return list(range(self.first, self.last + 1, self.resolution))
 
     def coarse(self) -> list[int]:
@@ -246,7 +251,8 @@ class SequentialDesign(Design):
     def table(self, runs: pd.DataFrame, confidence: float, tolerance: float | None,
               mcnemar: pd.DataFrame | None = None, *,
               num_classes: int | None = None) -> pd.DataFrame:
-        """The measured windows with group-sequential verdicts (Holm over the whole grid)."""
+        """The measured windows with group-sequential verdicts (alpha shared over the whole
+        grid)."""
         mine = self.runs_used(runs)
         options = TableOptions(confidence=confidence, num_classes=num_classes)
         if self.variants:
@@ -262,7 +268,7 @@ class SequentialDesign(Design):
                           graph=self.alpha_graph(), family=tuple(self.grid()))
         table = add_staged_verdicts(table, seed_damages(mine, self.order), rule)
         # Futility is sticky: a window stopped for it gets no more seeds, even if a later
-        # round's recycled Holm level would raise its conditional power again.
+        # round's recycled share of alpha would raise its conditional power again.
         sticky = [self.cell_of(r) in self.futile and r.stopped == OPEN
                   for r in table.itertuples()]
         table.loc[pd.Series(sticky, index=table.index, dtype=bool), "stopped"] = FUTILE
@@ -346,6 +352,7 @@ class SequentialDesign(Design):
         # The bound over all windows is a fixed-sample one; after data-dependent stopping it
         # would claim more than it holds, so a staged answer does not state it.
         answer.established = None
+        answer.bounds_title = self.layout.bounds_title
         return answer
 
     # --- state --------------------------------------------------------------------------

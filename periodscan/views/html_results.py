@@ -90,7 +90,7 @@ def table_html(table: pd.DataFrame, layout: Layout, epochs: int) -> str:
     """The sensitivity table with verdicts, one row per window, and its interval methods."""
     level = int(round(100 * table.confidence.iloc[0]))
     heads = ["window", layout.axis, "seeds", "baseline %", "run %", "damage",
-             f"{level}% interval", "Holm bounds", "verdict", "McNemar differs", "notes"]
+             f"{level}% interval", layout.bounds_title, "verdict", "McNemar differs", "notes"]
     out = ["<div class='scroll'><table><tr>" + "".join(
         f"<th class='l'>{h}</th>" if h in ("window", "notes") else f"<th>{h}</th>"
         for h in heads) + "</tr>"]

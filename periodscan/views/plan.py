@@ -115,7 +115,7 @@ def format_plan(a: PlanAnswer) -> str:
         lines.append(f"  ! a {a.length_asked}-epoch deficit was not measured: answering from the "
                      f"nearest longer measured length, {a.length_used} epochs (conservative)")
     head = (f"{'start':>5} {'% of run':>8}" + (f" {'prod. epoch':>11}" if prod else "")
-            + f" {'seeds':>5} {'damage':>7} {'Holm bounds':>17} {'verdict':>12}  note")
+            + f" {'seeds':>5} {'damage':>7} {a.bounds_title:>17} {'verdict':>12}  note")
     lines += ["", head, "-" * len(head)]
     lines += [_start_line(s, prod) for s in a.starts]
     lines += ["", *plan_summary(a), ""]
