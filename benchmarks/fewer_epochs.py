@@ -63,6 +63,9 @@ WAYS = ("grid", "seq", "naive", "every")
 #: to see how far each one's answer repeats.
 FRESH, SEQ_FRESH = "fresh", "seqfresh"
 CAP = STAGES[-1]
+#: design.alpha_passing of (c), (d) and (e): benchmarks/results/fewer_epochs.txt was measured
+#: with even shares (Holm), before the bisection's shares existed; split_halves.py replays both.
+PASSING = "even"
 LENGTH, EPOCHS = 15, 60
 
 CONFIGS = {
@@ -112,6 +115,7 @@ def sequential_overrides(results_dir: Path, name: str, config: dict,
     return [*common(results_dir, name, config), "design=sequential", f"design.length={LENGTH}",
             f"design.resolution={config['resolution']}", f"design.initial_step={step}",
             f"design.stages=[{','.join(map(str, STAGES))}]", seeds_override(first_seed),
+            f"design.alpha_passing={PASSING}",
             *(["design.futility=0"] if every else [])]
 
 

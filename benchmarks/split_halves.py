@@ -17,9 +17,12 @@ and B. For each split, with A's seeds in a random order:
 * against the grid on all 32 seeds: the share of its decided cells each half-answer decides,
   and how many cells get the opposite verdict.
 
-With ``--settings`` the sequential design is also replayed with other settings (futility off,
-Pocock-type spending, stages 4, 8, 16, a first pass every 6 epochs instead of 10, or 8 instead
-of 12), each on the same splits.
+The sequential design is replayed twice on each split: as ``fewer_epochs.py`` trained it (alpha
+in even shares over the candidate starts, Holm) and with ``design.alpha_passing=bisection``
+(the first pass's starts hold alpha and pass it down the bisection). With ``--settings`` it is
+also replayed with other settings on top of the bisection's shares (futility off, Pocock-type
+spending, stages 4, 8, 16, a first pass every 6 epochs instead of 10, or 8 instead of 12), each
+on the same splits.
 
 Split 0 is seeds 0..15 against 16..31 in order, the pair ``fewer_epochs.py`` trained; the
 script checks that its replay gives the stored sequential sweep's answer and epochs.
@@ -51,10 +54,16 @@ from periodscan.engine.tree import build_tree
 from periodscan.jobs.prepare import Prepared, prepare
 
 HERE = Path(__file__).resolve().parent
-#: Sequential settings replayed besides the defaults of fewer_epochs.py (changes to its block).
-SETTINGS = {"default": {}, "futility off": {"futility": 0.0},
-            "pocock": {"spending": "pocock"}, "stages 4,8,16": {"stages": [4, 8, 16]},
-            "first pass finer": {"initial_step": "finer"}}
+#: The sequential design replayed on each split (changes to fewer_epochs.py's block): as
+#: fewer_epochs.py trained it (even shares of alpha, Holm), and with the bisection's shares.
+WAYS = {"even (as trained)": {}, "bisection": {"alpha_passing": "bisection"}}
+#: With --settings, other settings on top of the bisection's shares too.
+SETTINGS = {**WAYS,
+            **{f"bisection, {name}": {"alpha_passing": "bisection", **change} for name, change in {
+                "futility off": {"futility": 0.0}, "pocock": {"spending": "pocock"},
+                "stages 4,8,16": {"stages": [4, 8, 16]},
+                "first pass finer": {"initial_step": "finer"}}.items()}}
+LABEL = max(map(len, SETTINGS))  # width of the first column
 #: "finer": a first pass every 6 epochs where fewer_epochs.py uses 10 (every 8 where 12).
 FINER = {10: 6, 12: 8}
 
@@ -190,12 +199,12 @@ def report(name: str, ways: dict[str, Way], replay: str, splits: int, step: int)
              f"  grid A = grid B: same {share(grid.same)}, close {share(grid.close)}; a 16-seed "
              f"grid decides {np.mean(grid.decided):.2f} of the 32-seed grid's decided cells, "
              f"opposite verdicts {grid.opposite}",
-             "  sequential on A       same as grid A         close to grid A        "
+             f"  {'sequential on A':{LABEL}s}  same as grid A         close to grid A        "
              "same as grid B         epochs/naive  <= 1/5                 decided  opposite"]
     for label, way in ways.items():
         if label == "grid":
             continue
-        lines.append(f"  {label:20s}  {share(way.same):21s}  {share(way.close):21s}  "
+        lines.append(f"  {label:{LABEL}s}  {share(way.same):21s}  {share(way.close):21s}  "
                      f"{share(way.same_other):21s}  {np.mean(way.ratio):12.3f}  "
                      f"{share(list(np.array(way.ratio) <= 0.2)):21s}  "
                      f"{np.mean(way.decided):7.2f}  {way.opposite:8d}")
@@ -214,7 +223,7 @@ def main() -> None:
     parser.add_argument("--out", default=str(HERE / "results" / "split_halves.txt"))
     args = parser.parse_args()
     root = Path(args.results_dir)
-    settings = SETTINGS if args.settings else {"default": {}}
+    settings = SETTINGS if args.settings else WAYS
     lines = [f"# split halves ({time.strftime('%Y-%m-%d %H:%M')}, {os.cpu_count()} cores, "
              f"random splits from seed {args.seed})", ""]
     for name in args.only:
