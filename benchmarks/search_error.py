@@ -42,8 +42,8 @@ from periodscan.analysis.staged_verdicts import (
     FUTILE,
     OPEN,
     StagedRule,
-    _crossings,
-    _why_open,
+    crossings,
+    why_open,
 )
 from periodscan.analysis.stats import TTest
 from periodscan.designs.staged_search import CRITICAL, SAFE, Known, bisection_graph, next_cells
@@ -109,7 +109,7 @@ def search(damages: np.ndarray, judge: StagedRule, max_rounds: int = 30) -> tupl
         tests = {s: all_looks[row[s]][:STAGES.seeds.index(cells[s]) + 1] for s in starts}
         pvalues = [[t.pvalue if np.isfinite(t.pvalue) else 1.0 for t in tests[s]]
                    for s in starts]
-        crossed, _, hopes = _crossings(pvalues, starts, judge)
+        crossed, _, hopes = crossings(pvalues, starts, judge)
         verdict, stopped = {}, {}
         for s, look, hope in zip(starts, crossed, hopes, strict=True):
             test = tests[s][-1 if look is None else look]
@@ -117,7 +117,7 @@ def search(damages: np.ndarray, judge: StagedRule, max_rounds: int = 30) -> tupl
                 verdict[s], stopped[s] = (CRITICAL if test.mean > TOLERANCE else SAFE), DECIDED
             else:
                 verdict[s] = None
-                stopped[s] = FUTILE if s in futile else _why_open(
+                stopped[s] = FUTILE if s in futile else why_open(
                     tests[s][-1], len(tests[s]) - 1, hope, judge)
         futile |= {s for s in starts if stopped[s] == FUTILE}
         known = {(s, 0): Known(label=verdict[s] if stopped[s] == DECIDED else (

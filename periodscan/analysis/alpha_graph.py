@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from periodscan.analysis.sequential import MONOTONE_SLACK, Stages, _check_alpha
+from periodscan.analysis.sequential import MONOTONE_SLACK, Stages
 
 #: Rounding slack when checking that shares add up to at most 1.
 SUM_SLACK = 1e-9
@@ -93,7 +93,9 @@ def graph_rejections(looks: Sequence[Sequence[float]], stages: Stages, alpha: fl
     their shares on, until nothing changes. A share only grows, and a larger share must not
     tighten any look (checked), so more looks never undo a rejection.
     """
-    alpha = _check_alpha(alpha)
+    alpha = float(alpha)
+    if not 0.0 < alpha < 1.0:
+        raise ValueError(f"alpha must lie in (0, 1), got {alpha}")
     m = graph.size
     if len(looks) != m:
         raise ValueError(f"looks has {len(looks)} hypotheses, the graph {m}")

@@ -106,7 +106,7 @@ def _judge_family(table: pd.DataFrame, rows: list, series: list[pd.Series],
     stages = rule.stages
     looks = [looks_of(d, stages, rule.tolerance, rule.sd_floor) for d in series]
     pvalues = [[t.pvalue if np.isfinite(t.pvalue) else 1.0 for t in tests] for tests in looks]
-    crossed, levels, hopes = _crossings(pvalues, [int(table.at[i, "start"]) for i in rows], rule)
+    crossed, levels, hopes = crossings(pvalues, [int(table.at[i, "start"]) for i in rows], rule)
     for i, tests, damage, look, level, hope in zip(rows, looks, series, crossed, levels, hopes,
                                                    strict=True):
         if not tests:
@@ -123,13 +123,13 @@ def _judge_family(table: pd.DataFrame, rows: list, series: list[pd.Series],
             table.at[i, "verdict"] = CRITICAL if test.mean > rule.tolerance else SAFE
             table.at[i, "stopped"] = DECIDED
             continue
-        table.at[i, "stopped"] = _why_open(test, len(tests) - 1, hope, rule)
+        table.at[i, "stopped"] = why_open(test, len(tests) - 1, hope, rule)
         if hope > 0:
             table.at[i, "more_seeds"] = seeds_to_settle(test.mean, test.sd, max(test.n, 1),
                                                         rule.tolerance, hope)
 
 
-def _crossings(pvalues: list[list[float]], starts: list[int],
+def crossings(pvalues: list[list[float]], starts: list[int],
                rule: StagedRule) -> tuple[list[int | None], list[float], list[float]]:
     """Per row: the look it was decided at (None if not), its level at the end, and the
     level open windows are judged at for futility (with a graph: the level it would reach if
@@ -153,7 +153,7 @@ def _crossings(pvalues: list[list[float]], starts: list[int],
             [rule.alpha * result.reachable[k] for k in at])
 
 
-def _why_open(test, look: int, level: float, rule: StagedRule) -> str:
+def why_open(test, look: int, level: float, rule: StagedRule) -> str:
     """At cap, futile (conditional power below ``rule.futility``), or open."""
     stages = rule.stages
     if look >= len(stages.seeds) - 1:
