@@ -18,8 +18,8 @@ so the starts' tests are correlated. Profiles of the true mean damage mu_s:
 * ``ramp``: damage falling steadily from 2.1 points at start 0, crossing the tolerance at
   start 14, which sits exactly at it (a verdict at 14 is wrong, and so is a wrong direction).
 
-The loop mirrors ``SequentialDesign.rounds``: verdicts and futility from the package's staged
-verdict code, new starts from ``staged_search.next_cells``.
+The loop is ``SequentialDesign.rounds`` without its runs tables: each window's verdict from
+``staged_verdicts.decide``, the next round from ``staged_search.known_cell`` and ``next_seeds``.
 
     python benchmarks/search_error.py [--sequences 20000]
 """
@@ -37,16 +37,15 @@ import numpy as np
 from scipy import stats
 
 from periodscan.analysis.sequential import Stages
-from periodscan.analysis.staged_verdicts import (
-    DECIDED,
-    FUTILE,
-    OPEN,
-    StagedRule,
-    crossings,
-    why_open,
-)
+from periodscan.analysis.staged_verdicts import DECIDED, FUTILE, StagedRule, crossings, decide
 from periodscan.analysis.stats import TTest
-from periodscan.designs.staged_search import CRITICAL, SAFE, Known, bisection_graph, next_cells
+from periodscan.designs.staged_search import (
+    CRITICAL,
+    SAFE,
+    bisection_graph,
+    known_cell,
+    next_seeds,
+)
 
 GRID = list(range(0, 40, 2))
 COARSE = [0, 10, 20, 30, 38]
@@ -98,8 +97,8 @@ def looks(damages: np.ndarray) -> list[list[TTest]]:
 
 
 def search(damages: np.ndarray, judge: StagedRule, max_rounds: int = 30) -> tuple[dict, int]:
-    """One sequential sweep on ``damages``: the verdict of each measured start (None if
-    undetermined) and the window-seeds it used."""
+    """One sequential sweep on ``damages``: the verdict of each measured start and the
+    window-seeds it used."""
     row = {s: i for i, s in enumerate(GRID)}
     all_looks = looks(damages)
     cells = {s: STAGES.seeds[0] for s in COARSE}
@@ -112,21 +111,14 @@ def search(damages: np.ndarray, judge: StagedRule, max_rounds: int = 30) -> tupl
         crossed, _, hopes = crossings(pvalues, starts, judge)
         verdict, stopped = {}, {}
         for s, look, hope in zip(starts, crossed, hopes, strict=True):
-            test = tests[s][-1 if look is None else look]
-            if look is not None and test.mean != TOLERANCE:
-                verdict[s], stopped[s] = (CRITICAL if test.mean > TOLERANCE else SAFE), DECIDED
-            else:
-                verdict[s] = None
-                stopped[s] = FUTILE if s in futile else why_open(
-                    tests[s][-1], len(tests[s]) - 1, hope, judge)
+            verdict[s], stopped[s] = decide(tests[s], look, hope, judge)
+            if stopped[s] != DECIDED and s in futile:
+                stopped[s] = FUTILE  # sticky, as in the design
         futile |= {s for s in starts if stopped[s] == FUTILE}
-        known = {(s, 0): Known(label=verdict[s] if stopped[s] == DECIDED else (
-            CRITICAL if tests[s][-1].mean > TOLERANCE else SAFE), settled=stopped[s] != OPEN)
-            for s in starts}
-        todo = {s: STAGES.next_stage(cells[s]) for s in starts if stopped[s] == OPEN}
-        for s, _level in next_cells(known, 1, RESOLUTION):
-            todo.setdefault(s, STAGES.seeds[0])
-        todo = {s: n for s, n in todo.items() if n is not None and n > cells.get(s, 0)}
+        known = {(s, 0): known_cell(verdict[s], stopped[s], tests[s][-1].mean, TOLERANCE)
+                 for s in starts}
+        todo = next_seeds({(s, 0): n for s, n in cells.items()}, known, STAGES, 1, RESOLUTION)
+        todo = {s: n for (s, _level), n in todo.items()}
         if not todo:
             break
         cells.update(todo)
@@ -137,7 +129,7 @@ def wrong(verdict: dict, means: np.ndarray) -> bool:
     """Any verdict at a start exactly at the tolerance, or any in the wrong direction."""
     for s, v in verdict.items():
         mu = means[GRID.index(s)]
-        if v is not None and (mu == TOLERANCE or (v == CRITICAL) != (mu > TOLERANCE)):
+        if v in (CRITICAL, SAFE) and (mu == TOLERANCE or (v == CRITICAL) != (mu > TOLERANCE)):
             return True
     return False
 
@@ -153,7 +145,7 @@ def simulate(profile: str, sequences: int, seed: int = 0) -> dict[str, dict[str,
         for passing, judge in rules.items():
             verdict, seeds = search(damages, judge)
             out[passing]["wrong"] += wrong(verdict, means)
-            out[passing]["decided"] += sum(v is not None for v in verdict.values())
+            out[passing]["decided"] += sum(v in (CRITICAL, SAFE) for v in verdict.values())
             out[passing]["seeds"] += seeds
     return {p: {k: v / sequences for k, v in r.items()} | {"wrong_count": r["wrong"]}
             for p, r in out.items()}

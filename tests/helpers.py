@@ -8,8 +8,11 @@ epoch, "deficit") every deficit epoch; ``gen.initial_seed()`` tells which run is
 
 from __future__ import annotations
 
+import importlib.util
 import os
+import sys
 from pathlib import Path
+from types import ModuleType
 
 import torch
 
@@ -70,3 +73,16 @@ class Payload:
 
     def __reduce__(self):
         return (Path.touch, (Path(self.target),))
+
+
+def load_script(path: Path) -> ModuleType:
+    """A script outside the package (benchmarks/, docs/) as a module, to call its functions.
+    It is registered under its name while it executes (dataclasses look their module up then)."""
+    spec = importlib.util.spec_from_file_location(path.stem, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[spec.name] = module
+    try:
+        spec.loader.exec_module(module)
+    finally:
+        del sys.modules[spec.name]
+    return module

@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import importlib.util
 import math
-import sys
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from helpers import load_script
 from statsmodels.stats.multitest import multipletests
 
 from periodscan.analysis.alpha_graph import AlphaGraph, graph_rejections
@@ -132,21 +131,13 @@ def test_a_first_pass_start_holds_a_fifth_of_alpha_not_a_twentieth():
     assert decided.verdict.iloc[0] == "critical" and decided.stopped.iloc[0] == DECIDED
 
 
-def _search_error():
-    spec = importlib.util.spec_from_file_location("search_error", BENCHMARKS / "search_error.py")
-    module = importlib.util.module_from_spec(spec)
-    sys.modules.setdefault("search_error", module)
-    spec.loader.exec_module(module)
-    return module
-
-
 def test_reduced_simulation_of_the_whole_search():
     """The sequential search on synthetic damages (benchmarks/search_error.py at 1,500
     sequences; the full run is in benchmarks/results/search_error.txt): with every start at the
     tolerance, wrong verdicts stay at most alpha + 3 SE under both ways of sharing alpha, though
     which starts are measured depends on the data. On a falling ramp, sharing along the bisection
     decides more starts than Holm's even shares."""
-    se = _search_error()
+    se = load_script(BENCHMARKS / "search_error.py")
     sequences = 1500
     flat = se.simulate("flat", sequences, seed=101)
     bound = 0.05 + 3 * math.sqrt(0.05 * 0.95 / sequences)

@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-import importlib.util
 import subprocess
 import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import load_script
 from PIL import Image
 
 from periodscan.api import load_sweep
@@ -40,9 +40,7 @@ def test_script_saves_the_figure_and_names_the_worst_window(folder, tmp_path):
 
 
 def test_learning_curves_end_at_each_runs_final_accuracy(folder):
-    spec = importlib.util.spec_from_file_location("read_a_sweep", SCRIPT)
-    script = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(script)
+    script = load_script(SCRIPT)
     with load_sweep(folder) as view:
         curves = script.learning_curves(view.epochs, 3)
         runs = view.runs

@@ -26,13 +26,12 @@ seeds (script kept out of the repo; the counts are ours).
 
 from __future__ import annotations
 
-import importlib.util
-import sys
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from helpers import load_script
 from scipy import stats
 
 from periodscan.api import load_sweep
@@ -146,13 +145,7 @@ def test_flip_leaves_no_lasting_damage(flip):
 def test_study_script_writes_tables_and_figures(blur, flip, results_dir, tmp_path):
     """benchmarks/validation_study.py --reduced --report-only redraws from the finished sweeps."""
     path = REPO / "benchmarks" / "validation_study.py"
-    spec = importlib.util.spec_from_file_location("validation_study", path)
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = module  # dataclasses look their module up while it executes
-    try:
-        spec.loader.exec_module(module)
-    finally:
-        del sys.modules[spec.name]
+    module = load_script(path)
     out = tmp_path / "out"
     assert module.main(["--reduced", "--report-only", "--results-dir", str(results_dir),
                         "--out", str(out)]) == 0

@@ -112,20 +112,16 @@ def _judge_family(table: pd.DataFrame, rows: list, series: list[pd.Series],
         if not tests:
             continue
         at = len(tests) - 1 if look is None else look
-        test = tests[at]
         table.at[i, "p_value"] = tests[-1].pvalue
         nominal = float(stages.levels(level)[at]) if level > 0 else 0.0
         if nominal > 0:
             bound = t_interval(damage[damage.index < stages.seeds[at]].to_numpy(),
                                1.0 - nominal, sd_floor=rule.sd_floor)
             table.at[i, "holm_low"], table.at[i, "holm_high"] = bound.low, bound.high
-        if look is not None and test.mean != rule.tolerance:
-            table.at[i, "verdict"] = CRITICAL if test.mean > rule.tolerance else SAFE
-            table.at[i, "stopped"] = DECIDED
-            continue
-        table.at[i, "stopped"] = why_open(test, len(tests) - 1, hope, rule)
-        if hope > 0:
-            table.at[i, "more_seeds"] = seeds_to_settle(test.mean, test.sd, max(test.n, 1),
+        table.at[i, "verdict"], table.at[i, "stopped"] = decide(tests, look, hope, rule)
+        last = tests[-1]
+        if table.at[i, "stopped"] != DECIDED and hope > 0:
+            table.at[i, "more_seeds"] = seeds_to_settle(last.mean, last.sd, max(last.n, 1),
                                                         rule.tolerance, hope)
 
 
@@ -151,6 +147,15 @@ def crossings(pvalues: list[list[float]], starts: list[int],
     at = [index[s] for s in starts]
     return ([result.crossed[k] for k in at], [rule.alpha * result.shares[k] for k in at],
             [rule.alpha * result.reachable[k] for k in at])
+
+
+def decide(tests: list, look: int | None, level: float, rule: StagedRule) -> tuple[str, str]:
+    """Verdict of one window from its looks and the look that crossed (None if none), and why
+    it gets no more seeds: decided in the direction of its mean at that look, else undetermined
+    (at cap, futile at ``level``, or open)."""
+    if look is not None and tests[look].mean != rule.tolerance:
+        return (CRITICAL if tests[look].mean > rule.tolerance else SAFE), DECIDED
+    return UNDETERMINED, why_open(tests[-1], len(tests) - 1, level, rule)
 
 
 def why_open(test, look: int, level: float, rule: StagedRule) -> str:

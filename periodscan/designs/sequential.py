@@ -52,7 +52,8 @@ from periodscan.designs.staged_search import (
     bisection_graph,
     first_levels,
     implied_labels,
-    next_cells,
+    known_cell,
+    next_seeds,
 )
 from periodscan.designs.variants import SEVERITY_BLOCK, variants_summary
 from periodscan.engine.tree import RunSpec, baseline
@@ -190,15 +191,8 @@ class SequentialDesign(Design):
 
     def next_round(self, table: pd.DataFrame) -> dict[tuple[int, int], int]:
         """Seeds per cell for the next round: open cells to their next stage, new cells."""
-        known = self.known(table)
-        todo = {}
-        for cell, n in self.cells.items():
-            row = known.get(cell)
-            if row is not None and not row.settled:
-                todo[cell] = self.stages.next_stage(n)
-        for cell in next_cells(known, self.level_count(), self.resolution):
-            todo.setdefault(cell, self.stages.seeds[0])
-        return {c: n for c, n in todo.items() if n is not None and n > self.cells.get(c, 0)}
+        return next_seeds(self.cells, self.known(table), self.stages, self.level_count(),
+                          self.resolution)
 
     def cell_of(self, row: Any) -> tuple[int, int]:
         """(start, level index) of a table row."""
@@ -210,15 +204,9 @@ class SequentialDesign(Design):
         return {self.cell_of(row): row.stopped for row in table.itertuples()}
 
     def known(self, table: pd.DataFrame) -> dict[tuple[int, int], Known]:
-        """What the search knows about each measured cell: its verdict once decided, else its
-        mean damage against the tolerance (a window left undetermined at the cap or for
-        futility steers by its estimate too, so the search does not chase its noise)."""
-        out = {}
-        for row in table.itertuples():
-            label = row.verdict if row.stopped == DECIDED else (
-                CRITICAL if row.damage > self.tolerance else SAFE)
-            out[self.cell_of(row)] = Known(label=label, settled=row.stopped != OPEN)
-        return out
+        """What the search knows about each measured cell (:func:`staged_search.known_cell`)."""
+        return {self.cell_of(row): known_cell(row.verdict, row.stopped, row.damage,
+                                              self.tolerance) for row in table.itertuples()}
 
     def _progress(self, table: pd.DataFrame) -> str:
         counts = table.stopped.value_counts().to_dict() if len(table) else {}

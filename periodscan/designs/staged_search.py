@@ -33,6 +33,8 @@ from dataclasses import dataclass
 from itertools import takewhile
 
 from periodscan.analysis.alpha_graph import AlphaGraph
+from periodscan.analysis.sequential import Stages
+from periodscan.analysis.staged_verdicts import DECIDED, OPEN
 from periodscan.analysis.verdicts import CRITICAL, SAFE, UNDETERMINED
 
 #: Label of a level no measurement speaks for.
@@ -45,6 +47,25 @@ class Known:
 
     label: str  # critical, safe or undetermined (settled); critical or safe (provisional)
     settled: bool
+
+
+def known_cell(verdict: str, stopped: str, mean: float, tolerance: float) -> Known:
+    """What the search knows of a measured cell: its verdict once decided, else its mean damage
+    against the tolerance (a cell left undetermined at the cap or for futility steers by its
+    estimate too, so the search does not chase its noise)."""
+    label = verdict if stopped == DECIDED else (CRITICAL if mean > tolerance else SAFE)
+    return Known(label=label, settled=stopped != OPEN)
+
+
+def next_seeds(cells: Mapping[tuple[int, int], int], known: Mapping[tuple[int, int], Known],
+               stages: Stages, levels: int, resolution: int) -> dict[tuple[int, int], int]:
+    """Seeds per cell for the next round: open cells to their next stage, new cells at the
+    first; {} when the search is settled."""
+    todo = {cell: stages.next_stage(n) for cell, n in cells.items()
+            if cell in known and not known[cell].settled}
+    for cell in next_cells(known, levels, resolution):
+        todo.setdefault(cell, stages.seeds[0])
+    return {c: n for c, n in todo.items() if n is not None and n > cells.get(c, 0)}
 
 
 def level_labels(cells: Mapping[int, Known], levels: int) -> list[str]:
@@ -193,6 +214,6 @@ def bisection_graph(grid: list[int], coarse: list[int], resolution: int) -> Alph
 
 
 __all__ = ["CRITICAL", "SAFE", "UNDETERMINED", "UNKNOWN", "Known", "bisection_graph",
-           "first_levels",
+           "first_levels", "known_cell", "next_seeds",
            "edge_gaps", "implied_labels", "level_labels", "middle", "new_levels",
            "next_cells"]
