@@ -23,7 +23,7 @@ from periodscan.jobs.sweep import run_sweep
 from periodscan.views.answers import answer_text
 from periodscan.views.plan import fact_text, format_plan
 from periodscan.views.tables import format_table
-from periodscan.views.variants import severity_lines
+from periodscan.views.variants import format_variant_plan, severity_lines
 
 SEQUENTIAL = {"kind": "sequential", "length": 3, "resolution": 1, "initial_step": 2,
               "first_start": 0, "last_start": 4, "stages": [2, 3, 4],
@@ -137,6 +137,57 @@ def test_severity_levels_are_bisected_per_start(make_config):
                       + answer.undetermined_starts) == [0, 4]
 
 
+def test_middle_first_starts_each_start_at_its_middle_level(make_config):
+    # design.level_search=middle: the first pass trains the middle level only (sigma 2 of 1,
+    # 2, 4), and every later level at a start lies on the side its measured levels leave open
+    design = dict(SEQUENTIAL, severity={"param": "sigma", "levels": [1.0, 2.0, 4.0]},
+                  first_start=0, last_start=4, initial_step=4, resolution=4,
+                  level_search="middle", alpha_passing="bisection")
+    cfg = make_config(design=design, seeds=3)
+    cfg["design"]["stages"] = [2, 3]
+    prepared = prepare(cfg)
+    assert {(r.start, r.variant) for r in prepared.design.preview() if r.length} \
+        == {(0, "sigma=2"), (4, "sigma=2")}
+    outcome = run_sweep(cfg, quiet=True)
+    for _, rows in outcome.table.groupby("start"):
+        assert 2.0 in set(rows.severity) and len(rows) <= 3 and rows.severity.is_unique
+    # the bisection's shares hold at the level measured at every start; the others use Holm
+    with load_sweep(outcome.folder) as view:
+        plan = view.plan(3)
+        footer = format_table(view.table(with_mcnemar=False), view.design.layout)
+    assert "along the bisection at level sigma=2, measured first" in footer
+    assert "Holm at the other levels" in footer
+    coarse = {key: next(f for f in answer.facts if f.code == planner.SEQUENTIAL).starts
+              for key, answer in plan.answers.items()}
+    assert coarse == {"sigma=1": (), "sigma=2": (0, 4), "sigma=4": ()}
+    text = format_variant_plan(plan)
+    assert "alpha is shared over the starts of one length and one level" in text
+    assert "Holm's correction runs over the starts of one length" not in text
+
+
+def test_a_variant_without_a_graph_is_judged_by_holm():
+    # StagedRule.variant_graphs: a variant mapped to None must get exactly the Holm verdicts
+    # (the path checked against fixed-sample Holm above), whatever graph the others use
+    from periodscan.analysis.alpha_graph import AlphaGraph
+
+    rng = np.random.default_rng(5)
+    damages = {s: rng.normal(mu, 0.5, 8) for s, mu in
+               zip(range(0, 40, 5), [2.5, 1.6, 1.0, 0.7, 0.2, -0.1, -0.3, 0.0], strict=True)}
+    table, series = _windows(damages)
+    table["variant"] = "a"
+    series = {("a", s): v for (_, s), v in series.items()}
+    stages, starts = Stages((4, 8)), tuple(range(0, 40, 5))
+    holm = add_staged_verdicts(table, series, StagedRule(stages=stages, tolerance=0.5,
+                                                         family_size=8))
+    graph = AlphaGraph.fixed_order(8)
+    mixed = StagedRule(stages=stages, tolerance=0.5, family_size=8, graph=graph,
+                       family=starts, variant_graphs=(("a", None),))
+    ordered = StagedRule(stages=stages, tolerance=0.5, family_size=8, graph=graph,
+                         family=starts)
+    assert list(add_staged_verdicts(table, series, mixed).verdict) == list(holm.verdict)
+    assert list(add_staged_verdicts(table, series, ordered).verdict) != list(holm.verdict)
+
+
 @pytest.mark.parametrize(("change", "field"), [
     ({"stages": [5, 3]}, "design.stages"),
     ({"stages": [1, 3]}, "design.stages"),
@@ -145,6 +196,7 @@ def test_severity_levels_are_bisected_per_start(make_config):
     ({"deficits": ["blur", "noise"]}, "design.deficits"),
     ({"initial_step": 3, "resolution": 2}, "design.initial_step"),
     ({"alpha_passing": "uneven"}, "design.alpha_passing"),
+    ({"level_search": "outside_in"}, "design.level_search"),
 ])
 def test_bad_fields_name_the_field(make_config, change, field):
     cfg = make_config(design=dict(SEQUENTIAL, **change))

@@ -4,12 +4,17 @@ Every case is a situation drawn out by hand: which cells are measured, what they
 which cells a bisection must measure next (or imply) if damage is monotone between them.
 """
 
+import math
+
+import pytest
+
 from periodscan.designs.staged_search import (
     CRITICAL,
     SAFE,
     UNDETERMINED,
     UNKNOWN,
     Known,
+    first_levels,
     implied_labels,
     level_labels,
     new_levels,
@@ -49,6 +54,46 @@ def test_levels_bisect_between_differing_verdicts_at_one_start():
     assert new_levels({0: S, 2: S, 4: C}) == [3]
     assert new_levels({0: S, 3: S, 4: C}) == []  # threshold found between neighbours
     assert new_levels({0: C, 4: C}) == []  # critical at the mildest: critical at every level
+
+
+def test_middle_first_measures_the_middle_then_the_side_left_open():
+    assert first_levels(3, "middle") == [1]
+    assert first_levels(5, "middle") == [2]
+    assert first_levels(1, "middle") == [0]
+    assert first_levels(3) == [0, 2]
+    assert new_levels({1: C}, 3, "middle") == [0]  # the harsher level is implied critical
+    assert new_levels({1: S}, 3, "middle") == [2]  # the milder level is implied safe
+    assert new_levels({1: S, 2: C}, 3, "middle") == []
+    assert new_levels({2: S}, 5, "middle") == [4]  # the middle of the run 3, 4
+    with pytest.raises(ValueError, match="sideways"):
+        first_levels(3, "sideways")
+
+
+def test_middle_first_looks_both_ways_from_a_level_left_undetermined():
+    # stopped undetermined (its mean below the tolerance steers the start search as safe): the
+    # threshold is near it, so the milder level may be safe and the harsher critical
+    near = Known(SAFE, True, UNDETERMINED)
+    assert new_levels({1: near}, 3, "middle") == [0, 2]
+    # while it is still open, its provisional label steers the level search as well
+    assert new_levels({1: Known(SAFE, False)}, 3, "middle") == [2]
+
+
+@pytest.mark.parametrize("search", ["ends", "middle"])
+@pytest.mark.parametrize("levels", range(1, 10))
+def test_level_search_finds_every_threshold(levels, search):
+    # An oracle that answers without noise: levels below the threshold safe, the rest critical.
+    # Both searches must end with every level labelled correctly; the middle-first search is a
+    # binary search, so it measures at most ceil(log2(levels + 1)) levels (the decision-tree
+    # bound for levels + 1 outcomes: Knuth, TAOCP vol. 3, section 6.2.1, from memory), and the
+    # ends-first one at most two more than that.
+    bound = math.ceil(math.log2(levels + 1))
+    for threshold in range(levels + 1):
+        truth = [SAFE] * threshold + [CRITICAL] * (levels - threshold)
+        cells = {v: Known(truth[v], True) for v in first_levels(levels, search)}
+        while todo := new_levels(cells, levels, search):
+            cells.update({v: Known(truth[v], True) for v in todo})
+        assert level_labels(cells, levels) == truth, (threshold, cells)
+        assert len(cells) <= bound + (2 if search == "ends" else 0), (threshold, cells)
 
 
 def test_unmeasured_levels_follow_monotonicity():

@@ -21,7 +21,7 @@ it cannot raise the error rate of the verdicts given.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -52,6 +52,14 @@ class StagedRule:
     #: None: Holm over ``family_size``.
     graph: AlphaGraph | None = None
     family: tuple[int, ...] = ()
+    #: Per variant key, shares that replace ``graph`` for that variant's family (None there:
+    #: Holm), as (key, graph) pairs.
+    variant_graphs: tuple[tuple[str, AlphaGraph | None], ...] = ()
+
+    def for_variant(self, key: str) -> StagedRule:
+        """The rule of one variant's family."""
+        graphs = dict(self.variant_graphs)
+        return replace(self, graph=graphs[key]) if key in graphs else self
 
     @property
     def alpha(self) -> float:
@@ -97,7 +105,7 @@ def add_staged_verdicts(table: pd.DataFrame, damages: dict[tuple[str, int], pd.S
     for key in dict.fromkeys(keys):
         rows = [i for i in table.index if keys[i] == key]
         _judge_family(table, rows, [damages.get((key, int(table.at[i, "start"])), pd.Series(
-            dtype=float)) for i in rows], rule)
+            dtype=float)) for i in rows], rule.for_variant(key))
     return table
 
 

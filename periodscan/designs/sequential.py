@@ -6,15 +6,18 @@ The cheapest way this project has to answer the planning question. Three savings
   between measured starts whose answers differ, down to ``resolution`` epochs
   (:mod:`periodscan.designs.staged_search`). Starts between two measured starts with the same
   answer are not trained; the plan says they are implied.
-* **Severity by bisection.** With ``design.severity`` each start is measured at its mildest and
-  most severe level, then halfway between levels whose verdicts differ, so the threshold level
-  at each start takes about log2(levels) + 1 levels, not all of them.
+* **Severity by bisection.** With ``design.severity`` each start is measured at its middle
+  level first, then at the middle of the levels its verdict leaves open: a binary search, at
+  most log2(levels + 1) levels (rounded up) while every level it measures is decided, both
+  sides of a level left undetermined. ``design.level_search=ends`` measures the mildest and
+  most severe level first instead.
 * **Seeds in stages.** Every window measured gets ``stages[0]`` seeds, then the next stage each
   round until it is decided, stopped for futility, or at the cap (the last stage). Verdicts come
   from group-sequential t tests with an alpha-spending function, alpha shared over the whole
   grid of candidate starts (:mod:`periodscan.analysis.staged_verdicts`; by default along the
-  bisection, ``design.alpha_passing``), so deciding a clear window after a few seeds keeps the
-  error rate at the confidence level.
+  bisection, ``design.alpha_passing``, at the severity levels measured first at every start,
+  and by Holm at the others), so deciding a clear window after a few seeds keeps the error rate
+  at the confidence level.
 
 Every run is the run a full grid would train (exact branching); rounds share one folder.
 """
@@ -48,6 +51,7 @@ from periodscan.analysis.verdicts import CRITICAL, SAFE
 from periodscan.designs.base import Design, Measured
 from periodscan.designs.layout import WINDOW
 from periodscan.designs.staged_search import (
+    LEVEL_SEARCH,
     Known,
     bisection_graph,
     first_levels,
@@ -90,6 +94,7 @@ class SequentialDesign(Design):
         "spending": [Options(SPENDING)],
         "futility": [Interval(float, 0.0, 1.0, closed="left")],
         "alpha_passing": [Options(PASSING), None],  # None (a sweep from before it existed): even
+        "level_search": [Options(LEVEL_SEARCH), None],  # None (likewise): ends
         "max_rounds": [COUNT],
         "severity": [SEVERITY_BLOCK, None],
         "deficits": [None],
@@ -129,8 +134,12 @@ class SequentialDesign(Design):
         self.stages = Stages(tuple(int(n) for n in b["stages"]), b["spending"])
         self.check_levels(self.confidence)
         if self.passing == "bisection":
+            shared = [self.key_of(v) for v in range(self.level_count()) if self.shares_level(v)]
+            where = ("" if len(shared) == self.level_count() else
+                     f" at level{'s' if len(shared) > 1 else ''} {', '.join(shared)}, "
+                     "measured first at every start; Holm at the other levels")
             self.layout = replace(self.layout, correction="corrected (alpha held by the first "
-                                  "pass's starts, passed on along the bisection) over",
+                                  f"pass's starts, passed on along the bisection{where}) over",
                                   bounds_title=BISECTION_BOUNDS)
 
     def check_levels(self, confidence: float) -> None:
@@ -162,9 +171,9 @@ class SequentialDesign(Design):
 
     # --- what to train ----------------------------------------------------------------
     def _first_cells(self) -> dict[tuple[int, int], int]:
-        """The first round: coarse starts at their mildest and most severe level."""
+        """The first round: coarse starts at the levels the level search measures first."""
         return {(s, v): self.stages.seeds[0] for s in self.coarse()
-                for v in first_levels(self.level_count())}
+                for v in first_levels(self.level_count(), self.level_search)}
 
     def preview(self) -> list[RunSpec]:
         return self._runs(self._first_cells())
@@ -192,7 +201,7 @@ class SequentialDesign(Design):
     def next_round(self, table: pd.DataFrame) -> dict[tuple[int, int], int]:
         """Seeds per cell for the next round: open cells to their next stage, new cells."""
         return next_seeds(self.cells, self.known(table), self.stages, self.level_count(),
-                          self.resolution)
+                          self.resolution, self.level_search)
 
     def cell_of(self, row: Any) -> tuple[int, int]:
         """(start, level index) of a table row."""
@@ -253,7 +262,8 @@ class SequentialDesign(Design):
         rule = StagedRule(stages=self.stages, tolerance=float(tolerance), confidence=confidence,
                           futility=float(self.block["futility"]),
                           family_size=self.holm_family_size(), sd_floor=resolution(mine),
-                          graph=self.alpha_graph(), family=tuple(self.grid()))
+                          graph=self.alpha_graph(), family=tuple(self.grid()),
+                          variant_graphs=self.level_graphs())
         table = add_staged_verdicts(table, seed_damages(mine, self.order), rule)
         # Futility is sticky: a window stopped for it gets no more seeds, even if a later
         # round's recycled share of alpha would raise its conditional power again.
@@ -269,11 +279,32 @@ class SequentialDesign(Design):
     def passing(self) -> str:
         return self.block.get("alpha_passing") or "even"
 
+    @property
+    def level_search(self) -> str:
+        """How each start's threshold level is searched (``staged_search.LEVEL_SEARCH``)."""
+        return self.block.get("level_search") or "ends"
+
     def alpha_graph(self) -> AlphaGraph | None:
         """The shares of alpha over the grid's starts (None: Holm's even shares)."""
         if self.passing == "even":
             return None
         return bisection_graph(self.grid(), self.coarse(), self.resolution)
+
+    def shares_level(self, level: int) -> bool:
+        """Whether the bisection's shares apply at this level: only at the levels the search
+        measures at every start it visits, where the first pass's starts are measured whatever
+        the data. Elsewhere a start is measured only where other levels leave it open, so a
+        share fixed on a first-pass start would often sit where the level is never measured:
+        those levels share alpha evenly (Holm)."""
+        return (self.passing == "bisection"
+                and level in first_levels(self.level_count(), self.level_search))
+
+    def level_graphs(self) -> tuple[tuple[str, AlphaGraph | None], ...]:
+        """Per level with severity levels: the bisection's graph or None (Holm)."""
+        if not self.variants or self.passing == "even":
+            return ()
+        return tuple((self.key_of(v), self.alpha_graph() if self.shares_level(v) else None)
+                     for v in range(self.level_count()))
 
     def implied(self, table: pd.DataFrame) -> dict[tuple[int, int], str]:
         """Verdict of every (grid start, level): measured, or implied by monotonicity."""
@@ -335,7 +366,7 @@ class SequentialDesign(Design):
                               count=max(self.order) + 1, seeds=self.stages.cap))
         extra.append(Fact(planner.SEQUENTIAL, count=self.holm_family_size(),
                           seeds=self.stages.cap,
-                          starts=() if self.passing == "even" else tuple(self.coarse())))
+                          starts=tuple(self.coarse()) if self.shares_level(level) else ()))
         answer.facts = facts[:-1] + extra + facts[-1:]  # the proxy caveat stays last
         # The bound over all windows is a fixed-sample one; after data-dependent stopping it
         # would claim more than it holds, so a staged answer does not state it.

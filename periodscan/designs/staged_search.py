@@ -7,10 +7,13 @@ or at the seed cap); an unsettled one carries a provisional label from its inter
 
 Two bisections, both assuming the damage is monotone between the cells they measured:
 
-* **Levels, at each measured start.** Levels are ordered mildest first; a start is first
-  measured at its mildest and most severe level. Between two measured levels whose labels
-  differ, the level halfway is measured, until the threshold (the least severe critical level,
-  the most severe safe level) is found between neighbouring levels.
+* **Levels, at each measured start.** Levels are ordered mildest first. With ``ends`` a start is
+  first measured at its mildest and most severe level, and between two measured levels whose
+  labels differ the level halfway is measured. With ``middle`` it is first measured at its
+  middle level, then at the middle of the levels its labels leave unknown (a binary search: a
+  level more severe than a critical one is critical, one milder than a safe one safe). Either
+  way until the threshold (the least severe critical level, the most severe safe level) is found
+  between neighbouring levels.
 * **Starts.** Starts are first measured every ``initial_step`` epochs. For each level, the gaps
   that hold an edge of the answer are bisected (:func:`edge_gaps`): the gap before the first and
   after the latest critical start, and the gap before the trailing stretch of safe starts; the
@@ -40,6 +43,12 @@ from periodscan.analysis.verdicts import CRITICAL, SAFE, UNDETERMINED
 #: Label of a level no measurement speaks for.
 UNKNOWN = "unknown"
 
+#: How a start's threshold level is searched (``design.level_search``): ``ends`` measures the
+#: mildest and most severe level first, then halfway between levels whose labels differ (3
+#: cells of 3 levels where the threshold lies inside); ``middle`` measures the middle level
+#: first, then the middle of what its label leaves unknown (2 cells of 3 levels, always).
+LEVEL_SEARCH = ("ends", "middle")
+
 
 @dataclass(frozen=True)
 class Known:
@@ -47,6 +56,9 @@ class Known:
 
     label: str  # critical, safe or undetermined (settled); critical or safe (provisional)
     settled: bool
+    #: The final verdict of a settled cell, undetermined when stopped for futility or at the
+    #: cap (its label then steers by its mean); None while open.
+    verdict: str | None = None
 
 
 def known_cell(verdict: str, stopped: str, mean: float, tolerance: float) -> Known:
@@ -54,16 +66,18 @@ def known_cell(verdict: str, stopped: str, mean: float, tolerance: float) -> Kno
     against the tolerance (a cell left undetermined at the cap or for futility steers by its
     estimate too, so the search does not chase its noise)."""
     label = verdict if stopped == DECIDED else (CRITICAL if mean > tolerance else SAFE)
-    return Known(label=label, settled=stopped != OPEN)
+    settled = stopped != OPEN
+    return Known(label=label, settled=settled, verdict=verdict if settled else None)
 
 
 def next_seeds(cells: Mapping[tuple[int, int], int], known: Mapping[tuple[int, int], Known],
-               stages: Stages, levels: int, resolution: int) -> dict[tuple[int, int], int]:
+               stages: Stages, levels: int, resolution: int,
+               search: str = "ends") -> dict[tuple[int, int], int]:
     """Seeds per cell for the next round: open cells to their next stage, new cells at the
     first; {} when the search is settled."""
     todo = {cell: stages.next_stage(n) for cell, n in cells.items()
             if cell in known and not known[cell].settled}
-    for cell in next_cells(known, levels, resolution):
+    for cell in next_cells(known, levels, resolution, search):
         todo.setdefault(cell, stages.seeds[0])
     return {c: n for c, n in todo.items() if n is not None and n > cells.get(c, 0)}
 
@@ -99,8 +113,23 @@ def middle(a: int, b: int, resolution: int) -> int | None:
     return point if a < point < b else None
 
 
-def new_levels(cells: Mapping[int, Known]) -> list[int]:
-    """Levels to add at one start: halfway between neighbouring measured levels that differ."""
+def new_levels(cells: Mapping[int, Known], levels: int | None = None,
+               search: str = "ends") -> list[int]:
+    """Levels to add at one start. ``ends``: halfway between neighbouring measured levels that
+    differ. ``middle``: the middle of each run of levels whose label is unknown, a level left
+    undetermined counting as no label (the threshold is near it: both sides may be decided)."""
+    if search == "middle":
+        steer = {v: Known(UNDETERMINED, True) if c.verdict == UNDETERMINED else c
+                 for v, c in cells.items()}
+        unknown = [v for v, label in enumerate(level_labels(steer, levels or 0))
+                   if label == UNKNOWN]
+        runs: list[list[int]] = []
+        for v in unknown:
+            if runs and runs[-1][-1] == v - 1:
+                runs[-1].append(v)
+            else:
+                runs.append([v])
+        return [run[len(run) // 2] for run in runs]
     measured = sorted(cells)
     wanted = []
     for low, high in zip(measured, measured[1:], strict=False):
@@ -109,9 +138,12 @@ def new_levels(cells: Mapping[int, Known]) -> list[int]:
     return wanted
 
 
-def first_levels(levels: int) -> list[int]:
-    """Where a new start is measured first: its mildest and most severe level."""
-    return sorted({0, levels - 1})
+def first_levels(levels: int, search: str = "ends") -> list[int]:
+    """Where a new start is measured first: its mildest and most severe level (``ends``), or
+    its middle one (``middle``; of an even count, the more severe of the two)."""
+    if search not in LEVEL_SEARCH:
+        raise ValueError(f"level search {search!r} is not one of {LEVEL_SEARCH}")
+    return [levels // 2] if search == "middle" else sorted({0, levels - 1})
 
 
 def edge_gaps(labels: dict[int, str]) -> list[tuple[int, int]]:
@@ -131,18 +163,19 @@ def edge_gaps(labels: dict[int, str]) -> list[tuple[int, int]]:
 
 
 def next_cells(known: Mapping[tuple[int, int], Known], levels: int,
-               resolution: int) -> list[tuple[int, int]]:
+               resolution: int, search: str = "ends") -> list[tuple[int, int]]:
     """New (start, level) cells to measure, in start then level order; [] when none."""
     by_start: dict[int, dict[int, Known]] = {}
     for (start, level), cell in known.items():
         by_start.setdefault(start, {})[level] = cell
-    wanted = [(s, v) for s, cells in sorted(by_start.items()) for v in new_levels(cells)]
+    wanted = [(s, v) for s, cells in sorted(by_start.items())
+              for v in new_levels(cells, levels, search)]
     answers = {s: level_labels(cells, levels) for s, cells in by_start.items()}
     for level in range(levels):
         for low, high in edge_gaps({s: a[level] for s, a in answers.items()}):
             point = middle(low, high, resolution)
             if point is not None:
-                wanted += [(point, v) for v in first_levels(levels)]
+                wanted += [(point, v) for v in first_levels(levels, search)]
     return [cell for cell in dict.fromkeys(sorted(wanted)) if cell not in known]
 
 
@@ -213,7 +246,8 @@ def bisection_graph(grid: list[int], coarse: list[int], resolution: int) -> Alph
     return AlphaGraph(tuple(weights), tuple(map(tuple, passes)))
 
 
-__all__ = ["CRITICAL", "SAFE", "UNDETERMINED", "UNKNOWN", "Known", "bisection_graph",
+__all__ = ["CRITICAL", "LEVEL_SEARCH", "SAFE", "UNDETERMINED", "UNKNOWN", "Known",
+           "bisection_graph",
            "first_levels", "known_cell", "next_seeds",
            "edge_gaps", "implied_labels", "level_labels", "middle", "new_levels",
            "next_cells"]

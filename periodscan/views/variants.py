@@ -127,8 +127,11 @@ def format_variant_plan(plan: VariantPlan) -> str:
     if first is not None:
         others = tuple(f.code for f in first.facts if f.code != planner.METHOD)
         lines += ["", *(f"note: {n}" for n in plan_notes(first, skip=others))]
-        lines.append(f"note: Each {noun} is judged on its own: Holm's correction runs over the "
-                     f"starts of one length and one {noun}. {PROXY_CAVEAT}")
+        staged = any(f.code == planner.SEQUENTIAL for f in first.facts)
+        sharing = (f"alpha is shared over the starts of one length and one {noun} as its notes "
+                   "above say" if staged else
+                   f"Holm's correction runs over the starts of one length and one {noun}")
+        lines.append(f"note: Each {noun} is judged on its own: {sharing}. {PROXY_CAVEAT}")
     return "\n".join(lines)
 
 
