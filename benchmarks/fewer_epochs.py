@@ -66,6 +66,8 @@ CAP = STAGES[-1]
 #: design.alpha_passing of (c), (d) and (e): benchmarks/results/fewer_epochs.txt was measured
 #: with even shares (Holm), before the bisection's shares existed; split_halves.py replays both.
 PASSING = "even"
+#: Likewise the level search it ran with: both ends of the severity levels first.
+LEVEL_SEARCH = "ends"
 LENGTH, EPOCHS = 15, 60
 
 CONFIGS = {
@@ -115,7 +117,7 @@ def sequential_overrides(results_dir: Path, name: str, config: dict,
     return [*common(results_dir, name, config), "design=sequential", f"design.length={LENGTH}",
             f"design.resolution={config['resolution']}", f"design.initial_step={step}",
             f"design.stages=[{','.join(map(str, STAGES))}]", seeds_override(first_seed),
-            f"design.alpha_passing={PASSING}",
+            f"design.alpha_passing={PASSING}", f"design.level_search={LEVEL_SEARCH}",
             *(["design.futility=0"] if every else [])]
 
 

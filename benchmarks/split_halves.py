@@ -21,8 +21,9 @@ The sequential design is replayed twice on each split: as ``fewer_epochs.py`` tr
 in even shares over the candidate starts, Holm) and with ``design.alpha_passing=bisection``
 (the first pass's starts hold alpha and pass it down the bisection). With ``--settings`` it is
 also replayed with other settings on top of the bisection's shares (futility off, Pocock-type
-spending, stages 4, 8, 16, a first pass every 6 epochs instead of 10, or 8 instead of 12), each
-on the same splits.
+spending, stages 4, 8, 16, a first pass every 6 epochs instead of 10, or 8 instead of 12, and
+each start's severity levels searched from the middle level, ``design.level_search=middle``,
+also with even shares), each on the same splits. ``--ways`` replays only the ways it names.
 
 Split 0 is seeds 0..15 against 16..31 in order, the pair ``fewer_epochs.py`` trained; the
 script checks that its replay gives the stored sequential sweep's answer and epochs.
@@ -32,7 +33,8 @@ from these seeds would do. The interval printed beside each (Clopper-Pearson ove
 is the Monte Carlo error of that average only; it says nothing about seeds beyond these 32.
 
     python benchmarks/split_halves.py [--only demo noise40 severity] [--splits 400]
-                                      [--settings] [--results-dir /work/bench] [--out FILE]
+                                      [--settings | --ways WAY ...] [--results-dir /work/bench]
+                                      [--out FILE]
 """
 
 from __future__ import annotations
@@ -62,7 +64,9 @@ SETTINGS = {**WAYS,
             **{f"bisection, {name}": {"alpha_passing": "bisection", **change} for name, change in {
                 "futility off": {"futility": 0.0}, "pocock": {"spending": "pocock"},
                 "stages 4,8,16": {"stages": [4, 8, 16]},
-                "first pass finer": {"initial_step": "finer"}}.items()}}
+                "first pass finer": {"initial_step": "finer"},
+                "middle level first": {"level_search": "middle"}}.items()},
+            "even, middle level first": {"level_search": "middle"}}
 LABEL = max(map(len, SETTINGS))  # width of the first column
 #: "finer": a first pass every 6 epochs where fewer_epochs.py uses 10 (every 8 where 12).
 FINER = {10: 6, 12: 8}
@@ -218,12 +222,17 @@ def main() -> None:
     parser.add_argument("--seed", type=int, default=0, help="of the random splits")
     parser.add_argument("--settings", action="store_true",
                         help="replay the sequential design with other settings too")
+    parser.add_argument("--ways", nargs="+", choices=list(SETTINGS), metavar="WAY",
+                        help="replay only these ways of the sequential design (names as in "
+                             "the report's first column)")
     parser.add_argument("--results-dir", default="/work/bench",
                         help="where fewer_epochs.py kept its ways grid, fresh, seq and naive")
     parser.add_argument("--out", default=str(HERE / "results" / "split_halves.txt"))
     args = parser.parse_args()
     root = Path(args.results_dir)
     settings = SETTINGS if args.settings else WAYS
+    if args.ways:
+        settings = {name: SETTINGS[name] for name in args.ways}
     lines = [f"# split halves ({time.strftime('%Y-%m-%d %H:%M')}, {os.cpu_count()} cores, "
              f"random splits from seed {args.seed})", ""]
     for name in args.only:
