@@ -46,7 +46,8 @@ UNKNOWN = "unknown"
 #: How a start's threshold level is searched (``design.level_search``): ``ends`` measures the
 #: mildest and most severe level first, then halfway between levels whose labels differ (3
 #: cells of 3 levels where the threshold lies inside); ``middle`` measures the middle level
-#: first, then the middle of what its label leaves unknown (2 cells of 3 levels, always).
+#: first, then the middle of what its label leaves unknown (2 cells of 3 levels, or all 3 when
+#: the middle one ends undetermined).
 LEVEL_SEARCH = ("ends", "middle")
 
 
