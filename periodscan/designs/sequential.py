@@ -259,11 +259,12 @@ class SequentialDesign(Design):
         if tolerance is None or table.empty:
             return table
         self.check_levels(confidence)
+        graph = self.alpha_graph()
         rule = StagedRule(stages=self.stages, tolerance=float(tolerance), confidence=confidence,
                           futility=float(self.block["futility"]),
                           family_size=self.holm_family_size(), sd_floor=resolution(mine),
-                          graph=self.alpha_graph(), family=tuple(self.grid()),
-                          variant_graphs=self.level_graphs())
+                          graph=graph, family=tuple(self.grid()),
+                          variant_graphs=self.level_graphs(graph))
         table = add_staged_verdicts(table, seed_damages(mine, self.order), rule)
         # Futility is sticky: a window stopped for it gets no more seeds, even if a later
         # round's recycled share of alpha would raise its conditional power again.
@@ -299,11 +300,11 @@ class SequentialDesign(Design):
         return (self.passing == "bisection"
                 and level in first_levels(self.level_count(), self.level_search))
 
-    def level_graphs(self) -> tuple[tuple[str, AlphaGraph | None], ...]:
-        """Per level with severity levels: the bisection's graph or None (Holm)."""
-        if not self.variants or self.passing == "even":
+    def level_graphs(self, graph: AlphaGraph | None) -> tuple[tuple[str, AlphaGraph | None], ...]:
+        """Per level with severity levels: the bisection's ``graph`` or None (Holm)."""
+        if not self.variants or graph is None:
             return ()
-        return tuple((self.key_of(v), self.alpha_graph() if self.shares_level(v) else None)
+        return tuple((self.key_of(v), graph if self.shares_level(v) else None)
                      for v in range(self.level_count()))
 
     def implied(self, table: pd.DataFrame) -> dict[tuple[int, int], str]:
