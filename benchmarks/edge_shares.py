@@ -29,7 +29,6 @@ from __future__ import annotations
 import argparse
 import math
 import os
-import random
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -38,7 +37,7 @@ import fewer_epochs as fe
 import numpy as np
 import pandas as pd
 from scipy import optimize
-from split_halves import Pooled, pooled
+from split_halves import Pooled, pooled, split_arguments, split_orders
 
 from periodscan.analysis.sensitivity import resolution
 from periodscan.analysis.sequential import Stages
@@ -167,12 +166,7 @@ def quartiles(values: list[float]) -> str:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--only", nargs="+", choices=list(fe.CONFIGS), default=list(fe.CONFIGS))
-    parser.add_argument("--splits", type=int, default=200)
-    parser.add_argument("--seed", type=int, default=0, help="of the random splits")
-    parser.add_argument("--results-dir", default="/work/bench",
-                        help="where fewer_epochs.py kept its ways grid and fresh")
-    parser.add_argument("--out", default=str(HERE / "results" / "edge_shares.txt"))
+    split_arguments(parser, 200, HERE / "results" / "edge_shares.txt")
     args = parser.parse_args()
     stages = {kind: Stages(tuple(fe.STAGES), kind) for kind in KINDS}
     lines = [f"# edge shares ({time.strftime('%Y-%m-%d %H:%M')}, {os.cpu_count()} cores, "
@@ -185,11 +179,9 @@ def main() -> None:
         print(f"{name}:", flush=True)
         data = pooled(name, Path(args.results_dir))
         seeds = sorted(int(s) for s in data.runs.seed.unique())
-        rng = random.Random(args.seed)
         splits = []
         started = time.perf_counter()
-        for k in range(args.splits):
-            order = list(seeds) if k == 0 else rng.sample(seeds, len(seeds))
+        for k, order in enumerate(split_orders(seeds, args.splits, args.seed)):
             splits.append(grid_edges(data, order[:fe.CAP], stages["obrien_fleming"]))
             if (k + 1) % 50 == 0:
                 print(f"  {k + 1}/{args.splits} splits, {time.perf_counter() - started:.0f} s",

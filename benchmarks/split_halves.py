@@ -166,8 +166,25 @@ def close_answer(ref: dict, other: dict, step: int) -> bool:
     return True
 
 
-def run_splits(data: Pooled, splits: int, seed: int, settings: dict) -> dict[str, Way]:
+def split_orders(seeds: list[int], splits: int, seed: int):
+    """The seeds in the order of each split (its first half is A, in that order): split 0 in
+    order, the others shuffled from ``seed``."""
     rng = random.Random(seed)
+    for k in range(splits):
+        yield list(seeds) if k == 0 else rng.sample(seeds, len(seeds))
+
+
+def split_arguments(parser: argparse.ArgumentParser, splits: int, out: Path) -> None:
+    """The options every script reading fewer_epochs.py's stored grids takes."""
+    parser.add_argument("--only", nargs="+", choices=list(fe.CONFIGS), default=list(fe.CONFIGS))
+    parser.add_argument("--splits", type=int, default=splits)
+    parser.add_argument("--seed", type=int, default=0, help="of the random splits")
+    parser.add_argument("--results-dir", default="/work/bench",
+                        help="where fewer_epochs.py kept its ways grid, fresh, seq and naive")
+    parser.add_argument("--out", default=str(out))
+
+
+def run_splits(data: Pooled, splits: int, seed: int, settings: dict) -> dict[str, Way]:
     seeds = sorted(int(s) for s in data.runs.seed.unique())
     reference = fe.answer_on(data.design(data.grid, seeds), data.runs, data.epochs,
                              data.classes)
@@ -175,8 +192,7 @@ def run_splits(data: Pooled, splits: int, seed: int, settings: dict) -> dict[str
                       for k, v in change.items()} for name, change in settings.items()}
     ways = {"grid": Way(), **{name: Way() for name in changes}}
     started = time.perf_counter()
-    for k in range(splits):
-        order = list(seeds) if k == 0 else rng.sample(seeds, len(seeds))
+    for k, order in enumerate(split_orders(seeds, splits, seed)):
         a, b = order[:fe.CAP], order[fe.CAP:]
         grid_a, grid_b = data.grid_answer(sorted(a)), data.grid_answer(sorted(b))
         ways["grid"].add(grid_a, grid_b, reference, data.step)
@@ -217,17 +233,12 @@ def report(name: str, ways: dict[str, Way], replay: str, splits: int, step: int)
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--only", nargs="+", choices=list(fe.CONFIGS), default=list(fe.CONFIGS))
-    parser.add_argument("--splits", type=int, default=400)
-    parser.add_argument("--seed", type=int, default=0, help="of the random splits")
+    split_arguments(parser, 400, HERE / "results" / "split_halves.txt")
     parser.add_argument("--settings", action="store_true",
                         help="replay the sequential design with other settings too")
     parser.add_argument("--ways", nargs="+", choices=list(SETTINGS), metavar="WAY",
                         help="replay only these ways of the sequential design (names as in "
                              "the report's first column)")
-    parser.add_argument("--results-dir", default="/work/bench",
-                        help="where fewer_epochs.py kept its ways grid, fresh, seq and naive")
-    parser.add_argument("--out", default=str(HERE / "results" / "split_halves.txt"))
     args = parser.parse_args()
     root = Path(args.results_dir)
     settings = SETTINGS if args.settings else WAYS
